@@ -1,0 +1,617 @@
+//! The checkpoint index: one view over every supported file format.
+//!
+//! Opening a checkpoint reads headers only and produces an index of tensors (name, dtype,
+//! shape, where the bytes are). Tensor data is read on demand from a read-only memory map
+//! and converted to `f64`, so memory stays of the order of the tables analysed, never of
+//! the checkpoint. Each format lives in its own module and only has to produce
+//! [`TensorInfo`] records; reading, conversion and strides are handled here once.
+//!
+//! Adding a format: write `checkpoint/<format>.rs` with `fn open(...) -> Result<Opened>`,
+//! add a [`Format`] variant, and route to it in [`Checkpoint::open`] / [`sniff`]. Nothing
+//! in the analyses or the report changes.
+
+pub mod dtype;
+pub mod safetensors;
+
+use std::borrow::Cow;
+use std::fs::File;
+use std::path::{Path, PathBuf};
+
+use memmap2::Mmap;
+use ndarray::{Array1, Array2, ArrayD, IxDyn};
+
+pub use dtype::Dtype;
+
+use crate::config::ConfigHints;
+
+/// The on-disk format of a checkpoint.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Format {
+    /// `.safetensors`, single file or sharded.
+    Safetensors,
+    /// `torch.save` zip archives (`.bin`, `.pt`, `.pth`, `.ckpt`).
+    Pytorch,
+    /// NumPy `.npy` / `.npz`.
+    Numpy,
+    /// GGUF v2/v3.
+    Gguf,
+}
+
+impl std::fmt::Display for Format {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Format::Safetensors => "safetensors",
+            Format::Pytorch => "pytorch",
+            Format::Numpy => "numpy",
+            Format::Gguf => "gguf",
+        })
+    }
+}
+
+/// A problem with the input: the file named cannot be used as a checkpoint.
+///
+/// Every variant's message names the file; the command line prints it as one line and
+/// exits with code 2.
+#[derive(Debug, thiserror::Error)]
+pub enum CheckpointError {
+    /// The path (or a file the checkpoint names) could not be opened or read.
+    #[error("{}: cannot read: {source}", path.display())]
+    Io {
+        /// The file.
+        path: PathBuf,
+        /// The operating-system error.
+        source: std::io::Error,
+    },
+    /// The file is not a valid checkpoint of its format.
+    #[error("{}: {problem}", path.display())]
+    Invalid {
+        /// The file.
+        path: PathBuf,
+        /// What is wrong, lower case, no final period.
+        problem: String,
+    },
+    /// The path holds nothing posaudit can open.
+    #[error("{}: {problem}", path.display())]
+    NotACheckpoint {
+        /// The file or folder.
+        path: PathBuf,
+        /// Why it was not recognised.
+        problem: String,
+    },
+}
+
+impl CheckpointError {
+    /// Shorthand for [`CheckpointError::Invalid`].
+    pub fn invalid(path: &Path, problem: impl Into<String>) -> Self {
+        CheckpointError::Invalid {
+            path: path.to_path_buf(),
+            problem: problem.into(),
+        }
+    }
+
+    /// Shorthand for [`CheckpointError::Io`].
+    pub fn io(path: &Path, source: std::io::Error) -> Self {
+        CheckpointError::Io {
+            path: path.to_path_buf(),
+            source,
+        }
+    }
+}
+
+/// Where the bytes of a tensor's storage are.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Storage {
+    /// A byte range of a memory-mapped file.
+    Mapped {
+        /// Byte offset of the first byte in the file.
+        offset: usize,
+        /// Length in bytes.
+        len: usize,
+    },
+    /// A compressed (deflate) member of a zip archive: decompressed when read.
+    ZipMember {
+        /// The member's name inside the archive.
+        member: String,
+    },
+}
+
+/// One tensor of the checkpoint: everything except its values.
+#[derive(Debug, Clone)]
+pub struct TensorInfo {
+    /// Full name, with nested containers flattened to dotted names.
+    pub name: String,
+    /// Element type.
+    pub dtype: Dtype,
+    /// Logical shape, row-major (the last dimension varies fastest).
+    pub shape: Vec<usize>,
+    /// Index into [`Checkpoint::files`] of the file holding the bytes.
+    pub file: usize,
+    /// Where the storage bytes are.
+    pub storage: Storage,
+    /// Index of the tensor's first element within its storage, in elements.
+    pub element_offset: usize,
+    /// Element strides per dimension; `None` means C-contiguous.
+    pub strides: Option<Vec<usize>>,
+    /// True when elements are stored big-endian (some `.npy` files).
+    pub big_endian: bool,
+}
+
+impl TensorInfo {
+    /// Number of elements (saturating; formats validate against overflow at open).
+    pub fn numel(&self) -> usize {
+        self.shape
+            .iter()
+            .try_fold(1usize, |a, &b| a.checked_mul(b))
+            .unwrap_or(usize::MAX)
+    }
+
+    /// Bytes of the tensor's values in its stored type, when the type has a fixed size.
+    pub fn nbytes(&self) -> Option<usize> {
+        self.dtype.size()?.checked_mul(self.numel())
+    }
+
+    /// The shape with leading size-1 dimensions removed (`(1, 512, 768)` → `(512, 768)`).
+    pub fn squeezed_shape(&self) -> Vec<usize> {
+        let first = self
+            .shape
+            .iter()
+            .position(|&s| s != 1)
+            .unwrap_or(self.shape.len());
+        self.shape[first..].to_vec()
+    }
+
+    /// Rows and columns when the tensor is read as a table: the last dimension is the
+    /// width, all others are flattened into rows. `None` for 0-d tensors.
+    pub fn as_table_dims(&self) -> Option<(usize, usize)> {
+        let (&cols, rest) = self.shape.split_last()?;
+        let rows = rest.iter().try_fold(1usize, |a, &b| a.checked_mul(b))?;
+        Some((rows, cols))
+    }
+}
+
+/// One file of a checkpoint, memory-mapped read-only.
+pub struct SourceFile {
+    /// The file's path as given or found.
+    pub path: PathBuf,
+    map: Option<Mmap>,
+}
+
+impl std::fmt::Debug for SourceFile {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("SourceFile")
+            .field("path", &self.path)
+            .field("len", &self.bytes().len())
+            .finish()
+    }
+}
+
+impl SourceFile {
+    /// Opens and maps a file read-only. An empty file maps to an empty slice.
+    pub fn open(path: &Path) -> Result<Self, CheckpointError> {
+        let file = File::open(path).map_err(|e| CheckpointError::io(path, e))?;
+        let meta = file.metadata().map_err(|e| CheckpointError::io(path, e))?;
+        if meta.is_dir() {
+            return Err(CheckpointError::invalid(
+                path,
+                "is a folder, expected a file",
+            ));
+        }
+        let map = if meta.len() == 0 {
+            None
+        } else {
+            // SAFETY: the map is read-only and private to this process. If another process
+            // truncates the file while we read it, reads may fault (SIGBUS); posaudit reads
+            // checkpoints that are not being written, and the README says so.
+            Some(unsafe { Mmap::map(&file) }.map_err(|e| CheckpointError::io(path, e))?)
+        };
+        Ok(SourceFile {
+            path: path.to_path_buf(),
+            map,
+        })
+    }
+
+    /// The whole file's bytes.
+    pub fn bytes(&self) -> &[u8] {
+        self.map.as_deref().unwrap_or(&[])
+    }
+
+    /// The file name without folders, for reports.
+    pub fn display_name(&self) -> String {
+        self.path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_else(|| self.path.display().to_string())
+    }
+}
+
+/// What a format module returns from opening a path.
+#[derive(Debug)]
+pub struct Opened {
+    /// The format.
+    pub format: Format,
+    /// The files, mapped.
+    pub files: Vec<SourceFile>,
+    /// The tensors, in file order.
+    pub tensors: Vec<TensorInfo>,
+    /// Hints the format's own metadata gives (GGUF key/values); merged with config.json.
+    pub hints: Option<ConfigHints>,
+    /// Non-fatal problems met while opening.
+    pub warnings: Vec<String>,
+}
+
+/// An opened checkpoint: its files, its tensor index and the configuration hints.
+#[derive(Debug)]
+pub struct Checkpoint {
+    /// The path the user gave.
+    pub path: PathBuf,
+    /// The format.
+    pub format: Format,
+    /// Every file of the checkpoint (one, or the shards).
+    pub files: Vec<SourceFile>,
+    /// Every tensor.
+    pub tensors: Vec<TensorInfo>,
+    /// Hints from `config.json` beside the weights (and the format's own metadata).
+    pub config: Option<ConfigHints>,
+    /// Non-fatal problems (e.g. a broken `config.json`).
+    pub warnings: Vec<String>,
+}
+
+/// Guesses the format of one file from its first bytes, then its extension.
+pub fn sniff(path: &Path, bytes: &[u8]) -> Option<Format> {
+    if bytes.starts_with(b"GGUF") {
+        return Some(Format::Gguf);
+    }
+    if bytes.starts_with(b"\x93NUMPY") {
+        return Some(Format::Numpy);
+    }
+    let ext = path
+        .extension()
+        .map(|e| e.to_string_lossy().to_ascii_lowercase())
+        .unwrap_or_default();
+    if bytes.starts_with(b"PK\x03\x04") || bytes.starts_with(b"PK\x05\x06") {
+        return Some(if ext == "npz" {
+            Format::Numpy
+        } else {
+            Format::Pytorch
+        });
+    }
+    match ext.as_str() {
+        "safetensors" => Some(Format::Safetensors),
+        "gguf" => Some(Format::Gguf),
+        "npy" | "npz" => Some(Format::Numpy),
+        "bin" | "pt" | "pth" | "ckpt" => Some(Format::Pytorch),
+        _ => None,
+    }
+}
+
+impl Checkpoint {
+    /// Opens a checkpoint file, or a folder holding one (sharded or not), reading headers
+    /// only. A `config.json` beside the weights is read for hints; a broken one becomes a
+    /// warning.
+    pub fn open(path: &Path) -> Result<Checkpoint, CheckpointError> {
+        let meta = std::fs::metadata(path).map_err(|e| CheckpointError::io(path, e))?;
+        let opened = if meta.is_dir() {
+            open_folder(path)?
+        } else {
+            open_file(path)?
+        };
+        let folder = if meta.is_dir() {
+            path.to_path_buf()
+        } else {
+            path.parent().map(Path::to_path_buf).unwrap_or_default()
+        };
+        let mut warnings = opened.warnings;
+        let config_path = folder.join("config.json");
+        let mut config = if config_path.is_file() {
+            match ConfigHints::read(&config_path) {
+                Ok(c) => Some(c),
+                Err(problem) => {
+                    warnings.push(format!("{}: ignored: {problem}", config_path.display()));
+                    None
+                }
+            }
+        } else {
+            None
+        };
+        if let Some(format_hints) = opened.hints {
+            config = Some(match config {
+                Some(c) => c.merged_with(format_hints),
+                None => format_hints,
+            });
+        }
+        Ok(Checkpoint {
+            path: path.to_path_buf(),
+            format: opened.format,
+            files: opened.files,
+            tensors: opened.tensors,
+            config,
+            warnings,
+        })
+    }
+
+    /// The tensor with this exact name.
+    pub fn tensor(&self, name: &str) -> Option<&TensorInfo> {
+        self.tensors.iter().find(|t| t.name == name)
+    }
+
+    /// Total bytes of all files.
+    pub fn total_bytes(&self) -> u64 {
+        self.files.iter().map(|f| f.bytes().len() as u64).sum()
+    }
+
+    /// The display name of the file holding a tensor.
+    pub fn file_name(&self, t: &TensorInfo) -> String {
+        self.files
+            .get(t.file)
+            .map(SourceFile::display_name)
+            .unwrap_or_default()
+    }
+
+    fn file_of(&self, t: &TensorInfo) -> Result<&SourceFile, CheckpointError> {
+        self.files.get(t.file).ok_or_else(|| {
+            CheckpointError::invalid(&self.path, format!("tensor `{}` names no file", t.name))
+        })
+    }
+
+    /// The raw bytes of a tensor's storage: borrowed from the map, or decompressed.
+    fn storage_bytes(&self, t: &TensorInfo) -> Result<Cow<'_, [u8]>, CheckpointError> {
+        let file = self.file_of(t)?;
+        match &t.storage {
+            Storage::Mapped { offset, len } => {
+                let end = offset.checked_add(*len);
+                end.and_then(|end| file.bytes().get(*offset..end))
+                    .map(Cow::Borrowed)
+                    .ok_or_else(|| {
+                        CheckpointError::invalid(
+                            &file.path,
+                            format!(
+                                "tensor `{}`: bytes {offset}..{} lie past the end of the file ({} bytes)",
+                                t.name,
+                                offset.saturating_add(*len),
+                                file.bytes().len()
+                            ),
+                        )
+                    })
+            }
+            Storage::ZipMember { member } => read_zip_member(file, member).map(Cow::Owned),
+        }
+    }
+
+    /// Storage element index of the element at C-order flat index `flat`.
+    fn storage_index(t: &TensorInfo, flat: usize) -> usize {
+        match &t.strides {
+            None => t.element_offset + flat,
+            Some(strides) => {
+                let mut rem = flat;
+                let mut idx = t.element_offset;
+                for (dim, stride) in t.shape.iter().zip(strides).rev() {
+                    if *dim == 0 {
+                        return idx;
+                    }
+                    idx += (rem % dim) * stride;
+                    rem /= dim;
+                }
+                idx
+            }
+        }
+    }
+
+    fn check_readable(&self, t: &TensorInfo, bytes: &[u8]) -> Result<(), CheckpointError> {
+        let file = &self.file_of(t)?.path;
+        let size = t.dtype.size().ok_or_else(|| {
+            CheckpointError::invalid(
+                file,
+                format!(
+                    "tensor `{}`: {}",
+                    t.name,
+                    t.dtype.unsupported_reason().unwrap_or_default()
+                ),
+            )
+        })?;
+        let n = t.numel();
+        if n == 0 {
+            return Ok(());
+        }
+        // The furthest element any index touches: offset + Σ (dim-1)·stride.
+        let last = match &t.strides {
+            None => t.element_offset.checked_add(n - 1),
+            Some(strides) => t
+                .shape
+                .iter()
+                .zip(strides)
+                .try_fold(t.element_offset, |acc, (d, s)| {
+                    acc.checked_add((d - 1).checked_mul(*s)?)
+                }),
+        };
+        let needed = last.and_then(|l| l.checked_add(1)?.checked_mul(size));
+        match needed {
+            Some(needed) if needed <= bytes.len() => Ok(()),
+            _ => Err(CheckpointError::invalid(
+                file,
+                format!(
+                    "tensor `{}` of shape {:?} needs more bytes than its storage holds ({} bytes)",
+                    t.name,
+                    t.shape,
+                    bytes.len()
+                ),
+            )),
+        }
+    }
+
+    /// Reads a whole tensor as f64.
+    pub fn read_f64(&self, t: &TensorInfo) -> Result<ArrayD<f64>, CheckpointError> {
+        let bytes = self.storage_bytes(t)?;
+        self.check_readable(t, &bytes)?;
+        let n = t.numel();
+        let mut out = Vec::with_capacity(n);
+        for flat in 0..n {
+            let idx = Self::storage_index(t, flat);
+            // check_readable proved every index is inside the storage.
+            out.push(
+                t.dtype
+                    .decode(&bytes, idx, t.big_endian)
+                    .unwrap_or(f64::NAN),
+            );
+        }
+        ArrayD::from_shape_vec(IxDyn(&t.shape), out).map_err(|e| {
+            CheckpointError::invalid(
+                &self.file_of(t).map(|f| f.path.clone()).unwrap_or_default(),
+                format!("tensor `{}`: {e}", t.name),
+            )
+        })
+    }
+
+    /// Reads a tensor as a table (rows × last dimension), see [`TensorInfo::as_table_dims`].
+    pub fn read_table(&self, t: &TensorInfo) -> Result<Array2<f64>, CheckpointError> {
+        let rows: Vec<usize> = (0..t.as_table_dims().map(|d| d.0).unwrap_or(0)).collect();
+        self.read_rows(t, &rows)
+    }
+
+    /// Reads selected rows of a tensor viewed as a table; out-of-range rows are an error.
+    /// Used by the detector's cheap content probe: only these rows are touched.
+    pub fn read_rows(
+        &self,
+        t: &TensorInfo,
+        rows: &[usize],
+    ) -> Result<Array2<f64>, CheckpointError> {
+        let path = self.file_of(t)?.path.clone();
+        let (nrows, ncols) = t.as_table_dims().ok_or_else(|| {
+            CheckpointError::invalid(&path, format!("tensor `{}` is a scalar", t.name))
+        })?;
+        let bytes = self.storage_bytes(t)?;
+        self.check_readable(t, &bytes)?;
+        let mut out = Array2::<f64>::zeros((rows.len(), ncols));
+        for (i, &r) in rows.iter().enumerate() {
+            if r >= nrows {
+                return Err(CheckpointError::invalid(
+                    &path,
+                    format!("tensor `{}`: row {r} out of range ({nrows} rows)", t.name),
+                ));
+            }
+            for c in 0..ncols {
+                let idx = Self::storage_index(t, r * ncols + c);
+                out[[i, c]] = t
+                    .dtype
+                    .decode(&bytes, idx, t.big_endian)
+                    .unwrap_or(f64::NAN);
+            }
+        }
+        Ok(out)
+    }
+
+    /// Reads an integer tensor exactly, flattened in C order.
+    pub fn read_i64(&self, t: &TensorInfo) -> Result<Array1<i64>, CheckpointError> {
+        let path = self.file_of(t)?.path.clone();
+        if !t.dtype.is_integer() {
+            return Err(CheckpointError::invalid(
+                &path,
+                format!(
+                    "tensor `{}` has type {}, expected an integer type",
+                    t.name, t.dtype
+                ),
+            ));
+        }
+        let bytes = self.storage_bytes(t)?;
+        self.check_readable(t, &bytes)?;
+        let n = t.numel();
+        let mut out = Vec::with_capacity(n);
+        for flat in 0..n {
+            let idx = Self::storage_index(t, flat);
+            out.push(
+                t.dtype
+                    .decode_int(&bytes, idx, t.big_endian)
+                    .unwrap_or(i64::MIN),
+            );
+        }
+        Ok(Array1::from(out))
+    }
+}
+
+/// Decompresses one member of a zip archive held in `file`.
+fn read_zip_member(file: &SourceFile, member: &str) -> Result<Vec<u8>, CheckpointError> {
+    use std::io::Read;
+    let mut archive = zip::ZipArchive::new(std::io::Cursor::new(file.bytes())).map_err(|e| {
+        CheckpointError::invalid(&file.path, format!("not a readable zip archive: {e}"))
+    })?;
+    let mut entry = archive
+        .by_name(member)
+        .map_err(|e| CheckpointError::invalid(&file.path, format!("zip member `{member}`: {e}")))?;
+    // A hostile archive can declare any size: cap what we are willing to inflate.
+    const MAX_MEMBER: u64 = 16 << 30;
+    if entry.size() > MAX_MEMBER {
+        return Err(CheckpointError::invalid(
+            &file.path,
+            format!(
+                "zip member `{member}` declares {} bytes, more than the 16 GiB limit",
+                entry.size()
+            ),
+        ));
+    }
+    let mut out = Vec::with_capacity(entry.size() as usize);
+    entry
+        .read_to_end(&mut out)
+        .map_err(|e| CheckpointError::invalid(&file.path, format!("zip member `{member}`: {e}")))?;
+    Ok(out)
+}
+
+fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
+    let file = SourceFile::open(path)?;
+    if file.bytes().is_empty() {
+        return Err(CheckpointError::invalid(path, "file is empty"));
+    }
+    match sniff(path, file.bytes()) {
+        Some(Format::Safetensors) => safetensors::open_files(vec![file]),
+        Some(other) => Err(CheckpointError::NotACheckpoint {
+            path: path.to_path_buf(),
+            problem: format!("{other} checkpoints are not supported yet"),
+        }),
+        None => {
+            // An unknown extension: try safetensors' header as the last resort, since it
+            // has no magic number.
+            safetensors::open_files(vec![file]).map_err(|_| CheckpointError::NotACheckpoint {
+                path: path.to_path_buf(),
+                problem: "not a recognised checkpoint (expected .safetensors, .bin/.pt/.pth/.ckpt, .npy/.npz or .gguf)".into(),
+            })
+        }
+    }
+}
+
+fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
+    let entries = std::fs::read_dir(dir).map_err(|e| CheckpointError::io(dir, e))?;
+    let mut names: Vec<PathBuf> = Vec::new();
+    for entry in entries {
+        let entry = entry.map_err(|e| CheckpointError::io(dir, e))?;
+        if entry.path().is_file() {
+            names.push(entry.path());
+        }
+    }
+    names.sort();
+    let has = |suffix: &str| -> Vec<PathBuf> {
+        names
+            .iter()
+            .filter(|p| p.to_string_lossy().ends_with(suffix))
+            .cloned()
+            .collect()
+    };
+    let st_index = has(".safetensors.index.json");
+    if let Some(index) = st_index.first() {
+        return safetensors::open_sharded(index);
+    }
+    let single = dir.join("model.safetensors");
+    if single.is_file() {
+        return open_file(&single);
+    }
+    let shards = has(".safetensors");
+    if !shards.is_empty() {
+        let files = shards
+            .iter()
+            .map(|p| SourceFile::open(p))
+            .collect::<Result<Vec<_>, _>>()?;
+        return safetensors::open_files(files);
+    }
+    Err(CheckpointError::NotACheckpoint {
+        path: dir.to_path_buf(),
+        problem: "folder holds no checkpoint (no .safetensors, .bin, .pt, .pth, .ckpt, .npy, .npz or .gguf file)".into(),
+    })
+}
