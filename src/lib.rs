@@ -2,4 +2,5 @@
 #![deny(missing_docs)]
 
 pub mod analyze;
+pub mod compare;
 pub mod linalg;
