@@ -40,8 +40,9 @@ pub struct MovedRow {
 /// cosine_i   = ⟨a_i, b_i⟩ / (‖a_i‖₂ ‖b_i‖₂)    (None when a_i = 0 or b_i = 0), clamped to [−1, 1]
 /// ```
 ///
-/// Sums of squares are taken in f64; values converted from any storage dtype up to F32
-/// cannot overflow them. Errors: [`CompareError::Empty`], [`CompareError::NonFinite`],
+/// Each row pair is divided by its largest absolute entry before squaring, so no sum
+/// over- or underflows; `change_i` is infinite only when the difference itself exceeds
+/// the f64 range. Errors: [`CompareError::Empty`], [`CompareError::NonFinite`],
 /// [`CompareError::ShapeMismatch`].
 pub fn row_change(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Result<RowChange, CompareError> {
     check_pair(a, b)?;
@@ -50,17 +51,24 @@ pub fn row_change(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Result<RowChange, C
     let mut relative_change = Vec::with_capacity(n);
     let mut cosine = Vec::with_capacity(n);
     for (ra, rb) in a.rows().into_iter().zip(b.rows()) {
+        // Work in units of the row pair's largest entry so no square over- or underflows.
+        let m = ra
+            .iter()
+            .chain(rb.iter())
+            .fold(0.0_f64, |m, v| m.max(v.abs()));
+        let m = if m > 0.0 { m } else { 1.0 };
         let (mut aa, mut bb, mut ab, mut dd) = (0.0, 0.0, 0.0, 0.0);
         for (&x, &y) in ra.iter().zip(rb.iter()) {
+            let (x, y) = (x / m, y / m);
             aa += x * x;
             bb += y * y;
             ab += x * y;
             dd += (y - x) * (y - x);
         }
-        let d = dd.sqrt();
+        let d = dd.sqrt() * m;
         change.push(d);
         relative_change.push(if aa > 0.0 {
-            Some(d / aa.sqrt())
+            Some(dd.sqrt() / aa.sqrt())
         } else if d == 0.0 {
             Some(0.0)
         } else {

@@ -33,7 +33,9 @@ pub use similarity::{
     ChanceLevel, Similarity, SimilarityOptions, linear_cka, principal_angles, procrustes_residual,
     similarity,
 };
-pub use timeline::{NoiseLevel, NoiseMethod, Timeline, TimelineSummary, estimate_noise};
+pub use timeline::{
+    DEFAULT_MEDIAN_FRACTION, NoiseLevel, NoiseMethod, Timeline, TimelineSummary, estimate_noise,
+};
 pub use unchanged::{UnchangedRange, range_pairs, rounding_tolerance, unchanged_ranges};
 
 use crate::linalg::LinalgError;
@@ -284,5 +286,122 @@ mod tests {
         assert!(s.subspace_similarity.is_none() && s.similarity_unavailable.is_some());
         let (x, y) = common_leading_rows(c.view(), a.slice(ndarray::s![.., ..3])).unwrap();
         assert_eq!((x.nrows(), y.nrows()), (5, 5));
+    }
+
+    #[test]
+    fn a_four_checkpoint_run_gives_first_moves_and_convergence() {
+        // Invented run of a 64x8 f32 table over 4 checkpoints, in the spirit of a
+        // two-phase schedule (check-values.md §4.1: rows beyond the short length get
+        // gradient only in the later phase):
+        //   0->1: rows 0..32 trained, rows 32..64 only decayed by 0.999
+        //   1->2: every row trained
+        //   2->3: rows 0..16 trained, rows 16..64 only decayed by 0.999
+        let mut rng = Rng::new(99);
+        let mut tables = vec![gaussian_table(&mut rng, 64, 8, 0.02).mapv(round_f32)];
+        let trained: [std::ops::Range<usize>; 3] = [0..32, 0..64, 0..16];
+        for rows in &trained {
+            let prev = tables.last().unwrap().clone();
+            let step = gaussian_table(&mut rng, 64, 8, 1e-3);
+            let next = ndarray::Array2::from_shape_fn((64, 8), |(i, j)| {
+                round_f32(if rows.contains(&i) {
+                    prev[[i, j]] + step[[i, j]]
+                } else {
+                    0.999 * prev[[i, j]]
+                })
+            });
+            tables.push(next);
+        }
+        let mut t = Timeline::new(1);
+        for s in 0..3 {
+            let step = compare_step(
+                s,
+                s + 1,
+                tables[s].view(),
+                tables[s + 1].view(),
+                &StepOptions::default(),
+            )
+            .unwrap();
+            let expected_unchanged: Vec<[usize; 2]> = match s {
+                0 => vec![[32, 64]],
+                1 => vec![],
+                _ => vec![[16, 64]],
+            };
+            assert_eq!(step.unchanged, expected_unchanged, "step {s}");
+            let noise =
+                estimate_noise(&step.change, &step.unchanged, DEFAULT_MEDIAN_FRACTION).unwrap();
+            t.push_step(step.from, step.to, &step.change, noise.value)
+                .unwrap();
+        }
+        let s = t.summary();
+        assert_eq!(
+            s.first_moved_ranges
+                .iter()
+                .map(|r| (r.start, r.end, r.first_moved))
+                .collect::<Vec<_>>(),
+            vec![(0, 32, Some(1)), (32, 64, Some(2))]
+        );
+        assert_eq!(s.still_moving, vec![[0, 16]]);
+        assert_eq!(s.converged, vec![[16, 64]]);
+        assert!(s.never_moved.is_empty());
+    }
+
+    fn value() -> impl proptest::strategy::Strategy<Value = f64> {
+        use proptest::prelude::*;
+        // Non-finite values are rare so that most tables reach the numerical code.
+        prop_oneof![
+            2 => Just(0.0),
+            1 => Just(-0.0),
+            1 => Just(f64::NAN),
+            1 => Just(f64::INFINITY),
+            2 => Just(1e300),
+            2 => Just(-1e-310),
+            2 => Just(0.5),
+            40 => -1.0..1.0f64,
+        ]
+    }
+
+    fn table() -> impl proptest::strategy::Strategy<Value = ndarray::Array2<f64>> {
+        use proptest::prelude::*;
+        (0usize..6, 0usize..5).prop_flat_map(|(n, d)| {
+            proptest::collection::vec(value(), n * d)
+                .prop_map(move |v| ndarray::Array2::from_shape_vec((n, d), v).unwrap())
+        })
+    }
+
+    proptest::proptest! {
+        /// Whatever the input (empty, one row, NaN, ±inf, huge, subnormal, mismatched
+        /// shapes), the public functions return a value or an error and never panic;
+        /// the values they return keep their documented ranges.
+        #[test]
+        fn never_panics_and_keeps_documented_ranges(a in table(), b in table(), scale in 0.0..1.0f64) {
+            let b2 = a.mapv(|v| v * scale);
+            for other in [&b, &b2] {
+                if let Ok(s) = compare_step(0, 1, a.view(), other.view(), &StepOptions::default()) {
+                    proptest::prop_assert_eq!(s.change.len(), a.nrows());
+                    let mut last = 0;
+                    for &[st, en] in &s.unchanged {
+                        proptest::prop_assert!(st >= last && st < en && en <= a.nrows());
+                        last = en;
+                    }
+                    if let Some(v) = s.subspace_similarity {
+                        proptest::prop_assert!((0.0..=1.0).contains(&v));
+                    }
+                    if let Some(sim) = &s.similarity {
+                        proptest::prop_assert!((0.0..=1.0).contains(&sim.cka));
+                        proptest::prop_assert!(sim.principal_angles.iter().all(|t| (0.0..=std::f64::consts::FRAC_PI_2).contains(t)));
+                    }
+                    let _ = serde_json::to_string(&s).unwrap();
+                    let mut t = Timeline::new(2);
+                    if let Ok(noise) = estimate_noise(&s.change, &s.unchanged, DEFAULT_MEDIAN_FRACTION) {
+                        let _ = t.push_step(0, 1, &s.change, noise.value);
+                        let _ = t.push_step(1, 2, &s.change, noise.value);
+                    }
+                    let _ = t.summary();
+                }
+                let _ = similarity(a.view(), other.view(), &SimilarityOptions::default());
+                let _ = linear_cka(a.view(), other.view());
+                let _ = procrustes_residual(a.view(), other.view());
+            }
+        }
     }
 }

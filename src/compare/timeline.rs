@@ -14,7 +14,7 @@
 //!   them: what rounding and weight decay alone do to a row. A row moving more than that
 //!   received a gradient. When the known rows are bit-identical this is 0, and any change
 //!   counts.
-//! - otherwise a fixed fraction of the median row change (`median_fraction`, 0.05 by
+//! - otherwise a fixed fraction of the median row change (`median_fraction`, [`DEFAULT_MEDIAN_FRACTION`] = 0.05 by
 //!   default: a row moving less than 5% of what the typical row moved this step is
 //!   still). The median is robust to a minority of rows that moved a lot or not at all.
 //!   This is our choice, not a published rule; it detects rows that stopped while the
@@ -23,6 +23,9 @@
 use serde::Serialize;
 
 use super::CompareError;
+
+/// Default `median_fraction` of [`estimate_noise`]: our choice, see the module docs.
+pub const DEFAULT_MEDIAN_FRACTION: f64 = 0.05;
 
 /// Most position bins the heat map keeps.
 pub const MAX_BINS: usize = 256;

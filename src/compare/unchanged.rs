@@ -319,9 +319,12 @@ mod tests {
             b
         };
         let r = unchanged_ranges(a, b.view(), rounding_tolerance(7)).unwrap();
-        // 0.999 is below bf16 resolution (1e-3 < 2^-7), so rows 20..60 are one run; the
-        // 0.9 rows are split off. Rows 0..20 (trained, relative step ~5%) stay changed.
+        // A 0.999 shrink is below bf16's half-ulp (1e-3 < 2^-9 relative), so rows 20..50
+        // round back to the stored values: rows 20..60 are one bit-identical run. The
+        // 0.9 rows are split off with their factor. Rows 0..20 (trained, relative step
+        // ~5%) stay changed.
         assert_eq!(range_pairs(&r), vec![[20, 60], [60, 80]], "{r:?}");
+        assert!(r[0].bit_identical && !r[1].bit_identical, "{r:?}");
         assert!((r[1].scale - 0.9).abs() < 2e-3, "{r:?}");
     }
 
