@@ -305,6 +305,22 @@ pub fn similarity(
 ///
 /// The sine formula keeps small angles accurate where arccos loses half the digits.
 /// Errors: empty or non-finite inputs, different row counts.
+///
+/// Worked by hand: in ℝ³ the plane span{e₁, e₂} and the line through (0, 1, 1)/√2 meet
+/// at 45°.
+///
+/// ```
+/// use ndarray::array;
+/// let plane = array![[1.0, 0.0], [0.0, 1.0], [0.0, 0.0]];
+/// let h = 0.5f64.sqrt();
+/// let line = array![[0.0], [h], [h]];
+/// let angles = posaudit::compare::principal_angles(plane.view(), line.view()).unwrap();
+/// assert_eq!(angles.len(), 1);
+/// assert!((angles[0] - std::f64::consts::FRAC_PI_4).abs() < 1e-12);
+/// // the order of the arguments does not matter
+/// let swapped = posaudit::compare::principal_angles(line.view(), plane.view()).unwrap();
+/// assert!((swapped[0] - angles[0]).abs() < 1e-12);
+/// ```
 pub fn principal_angles(
     qa: ArrayView2<f64>,
     qb: ArrayView2<f64>,
