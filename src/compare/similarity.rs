@@ -489,6 +489,23 @@ mod tests {
             close(s.cka, "cka");
             close(s.procrustes_residual.unwrap(), "procrustes_residual");
         }
+        // The CKA chance formula against the script's numpy simulation of independent
+        // Gaussian tables (mean of `trials` draws, tolerance 4 standard errors).
+        let mut rng = Rng::new(17);
+        for c in doc["cka_chance"].as_array().unwrap() {
+            let get = |k: &str| c[k].as_f64().unwrap();
+            let (n, dx, dy) = (get("n") as usize, get("dx") as usize, get("dy") as usize);
+            let x = gaussian_table(&mut rng, n, dx, 1.0);
+            let y = gaussian_table(&mut rng, n, dy, 1.0);
+            let s = similarity(x.view(), y.view(), &SimilarityOptions::default()).unwrap();
+            let se = get("std") / get("trials").sqrt();
+            assert!(
+                (s.chance_level.cka - get("mean")).abs() < 4.0 * se,
+                "chance {} vs simulated {} (se {se})",
+                s.chance_level.cka,
+                get("mean")
+            );
+        }
         // Both CKA code paths (feature space and position space) give the same number.
         let p = &pairs[1];
         let (a, b) = (table(&p["a"]), table(&p["b"]));
