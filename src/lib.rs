@@ -11,6 +11,7 @@ pub mod checkpoint;
 pub mod cli;
 pub mod config;
 pub mod detect;
+pub mod compare;
 pub mod linalg;
 pub mod report;
 pub mod scan;
