@@ -2,3 +2,5 @@
 //! no printing. Each submodule is one idea; each returns a serialisable result struct
 //! that goes straight into the report model.
 pub mod position_ids;
+pub mod relative;
+pub mod rotary;
