@@ -702,6 +702,33 @@ mod tests {
         assert_eq!(f.first_half_axis, "row (h)");
     }
 
+    fn reference() -> serde_json::Value {
+        // Written by tests/reference/kinds.py (numpy; version recorded in the file).
+        let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/kinds.json");
+        serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+    }
+
+    #[test]
+    fn the_formula_matches_the_numpy_reference_grid() {
+        // tests/reference/kinds.py builds check-values §2.6 with np.meshgrid(grid_w, grid_h).
+        let r = reference();
+        let g = &r["mae_grid"];
+        let rows: Vec<Vec<f64>> = serde_json::from_value(g["rows"].clone()).unwrap();
+        assert_eq!((g["dim"].as_u64(), g["side"].as_u64()), (Some(16), Some(3)));
+        let ours = mae_table(3, 16);
+        assert_eq!(ours.nrows(), rows.len());
+        for (i, row) in rows.iter().enumerate() {
+            for (k, v) in row.iter().enumerate() {
+                assert!((ours[[i, k]] - v).abs() < 1e-12, "row {i} col {k}");
+            }
+        }
+        let t = Array2::from_shape_fn((10, 16), |(i, k)| rows[i][k]);
+        let layout = infer_grid(10, &[1, 10, 16], &GridHints::default()).unwrap();
+        let f = analyze_grid(t.view(), &layout).fixed_sincos.unwrap();
+        assert!(f.matches);
+        assert_eq!(f.first_half_axis, "column (w)");
+    }
+
     /// Invented learned grid: smooth waves along each axis (2 cycles down the height,
     /// 3 across the width) with per-dimension amplitudes and phases, plus small noise.
     fn wave_grid(h: usize, w: usize, dim: usize, interaction: bool, seed: u64) -> Array2<f64> {

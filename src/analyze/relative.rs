@@ -930,6 +930,32 @@ mod tests {
         assert!(a.problem.is_some());
     }
 
+    fn reference() -> serde_json::Value {
+        // Written by tests/reference/kinds.py (numpy; version recorded in the file).
+        let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/kinds.json");
+        serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+    }
+
+    #[test]
+    fn t5_buckets_match_the_numpy_reference_over_600_distances() {
+        // tests/reference/kinds.py evaluates check-values §5.1 in numpy float32.
+        let r = reference();
+        let t = &r["t5_buckets"];
+        let rps = t["relative_positions"].as_array().unwrap();
+        for (mode, bidirectional) in [("bidirectional", true), ("causal", false)] {
+            let want = t[mode].as_array().unwrap();
+            assert_eq!(rps.len(), want.len());
+            for (rp, b) in rps.iter().zip(want) {
+                let rp = rp.as_i64().unwrap();
+                assert_eq!(
+                    t5_bucket(rp, bidirectional, 32, 128) as u64,
+                    b.as_u64().unwrap(),
+                    "{mode} rp {rp}"
+                );
+            }
+        }
+    }
+
     #[test]
     fn degenerate_tables_give_a_problem_not_a_panic() {
         let empty = Array2::<f64>::zeros((0, 4));

@@ -1352,6 +1352,30 @@ mod tests {
         );
     }
 
+    fn reference() -> serde_json::Value {
+        // Written by tests/reference/kinds.py (numpy; version recorded in the file).
+        let path = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/kinds.json");
+        serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+    }
+
+    #[test]
+    fn numpy_float32_llama31_frequencies_are_read_back_as_the_published_ramp() {
+        // tests/reference/kinds.py computes check-values §6.6 in numpy float32.
+        let r = reference();
+        let v: Vec<f64> = serde_json::from_value(r["llama31"]["inv_freq_f32"].clone()).unwrap();
+        assert_eq!(v.len(), 64);
+        let a = analyze(&v, &RotaryHints::default());
+        assert_eq!(a.scaling, "wavelength-ramp", "{a:?}");
+        assert_eq!((a.factor, a.base), (8.0, Some(5e5)));
+        let ramp = a.ramp.unwrap();
+        assert_eq!(
+            (ramp.unchanged, ramp.smoothed, ramp.divided),
+            ((0, 29), (29, 35), (35, 64))
+        );
+        assert_eq!(ramp.original_context, Some(8192.0));
+        assert_eq!(ramp.high_freq_factor, Some(4.0));
+    }
+
     #[test]
     fn alibi_slopes_match_the_published_values() {
         // check-values §6.9.
