@@ -70,7 +70,7 @@ pub fn infer_grid(rows: usize, shape: &[usize], hints: &GridHints) -> Option<Gri
         && pw > 0
     {
         let (gh, gw) = (ih / ph, iw / pw);
-        let cells = gh * gw;
+        let cells = gh.saturating_mul(gw);
         let fits = cells > 0
             && cells <= rows
             && match hints.extra_rows {
@@ -244,21 +244,22 @@ pub struct GridAnalysis {
 /// row(y, x) = [e(x) | e(y)]   when column_first (the published code's order), else [e(y) | e(x)]
 /// ```
 ///
-/// Returns `None` when `dim` is not a positive multiple of 4.
+/// Returns `None` when `dim` is not a positive multiple of 4 or the size overflows.
 pub fn sincos_2d(
     height: usize,
     width: usize,
     dim: usize,
     column_first: bool,
 ) -> Option<Array2<f64>> {
-    if dim == 0 || !dim.is_multiple_of(4) {
+    let cells = height.checked_mul(width)?;
+    if dim == 0 || !dim.is_multiple_of(4) || cells.checked_mul(dim).is_none() {
         return None;
     }
     let q = dim / 4;
     let omega: Vec<f64> = (0..q)
         .map(|k| 1.0 / 10000f64.powf(k as f64 / q as f64))
         .collect();
-    Some(Array2::from_shape_fn((height * width, dim), |(p, c)| {
+    Some(Array2::from_shape_fn((cells, dim), |(p, c)| {
         let (y, x) = (p / width.max(1), p % width.max(1));
         let (first, second) = if column_first { (x, y) } else { (y, x) };
         let pos = if c < 2 * q { first } else { second } as f64;
@@ -861,5 +862,29 @@ mod tests {
         };
         assert!(analyze_grid(one.view(), &huge).problem.is_some());
         assert!(sincos_2d(2, 2, 6, true).is_none());
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
+
+        #[test]
+        fn arbitrary_layouts_and_tables_never_panic(
+            rows in 0usize..60, dim in 0usize..20,
+            vals in proptest::collection::vec(proptest::num::f64::ANY, 64),
+            img in proptest::option::of((0usize..usize::MAX, 0usize..usize::MAX)),
+            patch in proptest::option::of((0usize..64, 0usize..64)),
+            extra in proptest::option::of(0usize..usize::MAX),
+            h in 0usize..10, w in 0usize..10, e in 0usize..4,
+        ) {
+            let hints = GridHints { image_size: img, patch_size: patch, extra_rows: extra };
+            let t = Array2::from_shape_fn((rows, dim), |(r, k)| vals[(r * 7 + k) % 64]);
+            if let Some(l) = infer_grid(rows, &[1, rows, dim], &hints) {
+                proptest::prop_assert_eq!(l.extra_rows + l.height * l.width, rows);
+                let _ = analyze_grid(t.view(), &l);
+            }
+            let l = GridLayout { height: h, width: w, extra_rows: e, how: String::new() };
+            let a = analyze_grid(t.view(), &l);
+            proptest::prop_assert!(a.problem.is_some() || rows == e + h * w);
+        }
     }
 }

@@ -178,6 +178,9 @@ pub fn t5_bucket(
     ret + large.min(nb - 1)
 }
 
+/// Largest window (cells) whose index is built: 32×32, far above published windows.
+const MAX_WINDOW_CELLS: usize = 1024;
+
 /// Largest |distance| enumerated: beyond `max_distance` every distance shares a bucket.
 fn enumeration_limit(num_buckets: usize, max_distance: usize) -> i64 {
     let r = max_distance
@@ -507,10 +510,11 @@ pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnal
 /// ```
 ///
 /// Check values for window 7: 169 distinct entries, diagonal 84, idx[0,1] = 83,
-/// idx[1,0] = 85. Edge case: a zero-sized window gives an empty vector.
+/// idx[1,0] = 85. Edge cases: a zero-sized window, or one with more than 1024 cells
+/// (the index would hold over a million entries), gives an empty vector.
 pub fn swin_relative_index(wh: usize, ww: usize) -> Vec<usize> {
     let n = wh.saturating_mul(ww);
-    if n == 0 || n > 65_536 {
+    if n == 0 || n > MAX_WINDOW_CELLS {
         return Vec::new();
     }
     let mut out = Vec::with_capacity(n * n);
@@ -539,7 +543,7 @@ pub fn is_swin_index(values: &[i64], shape: &[usize]) -> Option<(usize, usize)> 
         }
         _ => return None,
     };
-    if n == 0 || n > 1024 || values.len() != n * n {
+    if n == 0 || n > MAX_WINDOW_CELLS || values.len() != n * n {
         return None;
     }
     let max = *values.iter().max()?;
@@ -596,11 +600,13 @@ pub fn analyze_swin(
             (s.div_ceil(2), s.div_ceil(2))
         }
     };
-    let (mh, mw) = ((2 * wh).saturating_sub(1), (2 * ww).saturating_sub(1));
-    if mh * mw != rows || wh == 0 || ww == 0 {
+    let (mh, mw) = (
+        wh.saturating_mul(2).saturating_sub(1),
+        ww.saturating_mul(2).saturating_sub(1),
+    );
+    if mh.checked_mul(mw) != Some(rows) || wh == 0 || ww == 0 {
         a.problem = Some(format!(
-            "window {wh}x{ww} needs {} rows, table has {rows}",
-            mh * mw
+            "window {wh}x{ww} needs (2h−1)(2w−1) rows, table has {rows}"
         ));
         return a;
     }
@@ -1001,5 +1007,33 @@ mod tests {
         }
         assert_eq!(t5_bucket(i64::MIN, true, 32, 128), 15);
         assert!(swin_relative_index(0, 7).is_empty());
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
+
+        #[test]
+        fn buckets_stay_in_range(rp in proptest::num::i64::ANY, bi in proptest::bool::ANY,
+                                 nb in 0usize..200, md in 0usize..100_000) {
+            let b = t5_bucket(rp, bi, nb, md);
+            proptest::prop_assert!(nb == 0 || b < nb);
+        }
+
+        #[test]
+        fn arbitrary_tables_never_panic(
+            rows in 0usize..40, heads in 0usize..5,
+            vals in proptest::collection::vec(proptest::num::f64::ANY, 200),
+            md in proptest::option::of(0usize..1000),
+            bi in proptest::option::of(proptest::bool::ANY),
+            init in proptest::option::of(proptest::num::f64::ANY),
+        ) {
+            let t = Array2::from_shape_fn((rows, heads), |(r, h)| vals[(r * 5 + h) % 200]);
+            let hints = RelativeHints { bidirectional: bi, num_buckets: None, max_distance: md, init_std: init, name: None };
+            let a = analyze_t5(t.view(), &hints);
+            proptest::prop_assert!(a.problem.is_some() || a.head_trends.len() == heads);
+            let s = analyze_swin(t.view(), None, init);
+            proptest::prop_assert!(s.problem.is_some() || s.offset_maps.len() == heads);
+            let _ = analyze_swin(t.view(), Some((usize::MAX, 3)), init);
+        }
     }
 }

@@ -1044,13 +1044,14 @@ pub fn compare_layers(vectors: &[(String, ArrayView1<f64>)]) -> LayerAgreement {
 /// otherwise:       c = 2^⌊log2 n⌋;  slopes(c) ++ every other slope of slopes(2c), first n−c
 /// ```
 ///
-/// Edge case: 0 heads gives an empty vector.
+/// Edge cases: 0 heads, or more than 65536 (a config error, not a model), gives an
+/// empty vector.
 pub fn alibi_slopes(n_heads: usize) -> Vec<f64> {
     fn power_of_two(n: usize) -> Vec<f64> {
         let start = 2f64.powf(-8.0 / n as f64);
         (1..=n).map(|h| start.powi(h as i32)).collect()
     }
-    if n_heads == 0 {
+    if n_heads == 0 || n_heads > 65_536 {
         return Vec::new();
     }
     if n_heads.is_power_of_two() {
@@ -1465,5 +1466,50 @@ mod tests {
         v[20] *= 1.5;
         let a = analyze(&v, &RotaryHints::default());
         assert_eq!(a.scaling, "unknown");
+    }
+
+    /// The contract's scaling names (design.md, "Rotary `scaling`").
+    const SCALINGS: [&str; 5] = ["none", "linear", "ntk", "wavelength-ramp", "unknown"];
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
+
+        #[test]
+        fn arbitrary_vectors_never_panic(
+            v in proptest::collection::vec(proptest::num::f64::ANY, 0..70),
+            theta in proptest::option::of(proptest::num::f64::ANY),
+            rd in proptest::option::of(0usize..200),
+        ) {
+            let hints = RotaryHints { config_theta: theta, rotary_dim: rd, declared_context: Some(4096), original_context: None };
+            let a = analyze_inv_freq(ArrayView1::from(&v), &hints);
+            proptest::prop_assert!(a.problem.is_some() || a.base.is_some());
+            let _ = analyze_rope_factors(ArrayView1::from(&v), theta.unwrap_or(1e4), &hints);
+        }
+
+        #[test]
+        fn decreasing_positive_vectors_always_get_a_fit(
+            mut v in proptest::collection::vec(1e-12f64..1.0, 2..70),
+        ) {
+            // Invented: any strictly positive vector sorted in decreasing order.
+            v.sort_by(|a, b| b.total_cmp(a));
+            let a = analyze_inv_freq(ArrayView1::from(&v), &RotaryHints::default());
+            proptest::prop_assert!(a.problem.is_some() || a.base.is_some_and(|b| !b.is_nan()));
+            proptest::prop_assert!(SCALINGS.contains(&a.scaling.as_str()));
+        }
+
+        #[test]
+        fn arbitrary_configs_never_panic(
+            theta in proptest::num::f64::ANY,
+            dim in 0usize..300,
+            factor in proptest::num::f64::ANY,
+            kind in proptest::sample::select(vec!["linear", "dynamic", "yarn", "llama3", "longrope", "default", "x"]),
+            orig in proptest::option::of(0u64..100_000),
+            maxp in proptest::option::of(0usize..200_000),
+        ) {
+            let rs = serde_json::json!({"rope_type": kind, "factor": factor, "original_max_position_embeddings": orig,
+                "low_freq_factor": 1.0, "high_freq_factor": 4.0, "long_factor": [1.0, 2.0]});
+            let a = rotary_from_config(theta, dim, Some(&rs), maxp);
+            proptest::prop_assert!(SCALINGS.contains(&a.scaling.as_str()));
+        }
     }
 }
