@@ -368,8 +368,14 @@ fn path_cost(table: &ArrayView2<f64>, path: &[usize]) -> f64 {
 /// decreasing steps, and lag-1 autocorrelation along distance.
 ///
 /// An unreachable row "looks like init" when, with h heads and init std σ,
-/// `|mean| ≤ 4σ/√h` and `rms/σ ∈ [1 − 4/√(2h), 1 + 4/√(2h)]` (the sampling spread of a
-/// normal sample's mean and standard deviation, 4 standard errors).
+///
+/// ```text
+/// |mean| ≤ 4σ/√h    and    rms/σ ∈ [1 − 4/√(2h), 1 + 4/√(2h)]
+/// ```
+///
+/// (4 standard errors of a normal sample's mean and standard deviation; common practice).
+/// A head "looks untrained" when |Spearman| < 0.6 on every side, the lag-1
+/// autocorrelation is < 0.5 and, with σ known, its spread is within [0.5, 2]·σ.
 ///
 /// Edge cases: fewer than 2 rows, no heads or non-finite values set `problem`.
 pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnalysis {
@@ -509,8 +515,8 @@ pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnal
 /// index[i, j] = (y_i − y_j + wh − 1)·(2ww − 1) + (x_i − x_j + ww − 1)
 /// ```
 ///
-/// Check values for window 7: 169 distinct entries, diagonal 84, idx[0,1] = 83,
-/// idx[1,0] = 85. Edge cases: a zero-sized window, or one with more than 1024 cells
+/// Check values for window 7: 169 distinct entries, diagonal 84, `idx[0,1] = 83`,
+/// `idx[1,0] = 85`. Edge cases: a zero-sized window, or one with more than 1024 cells
 /// (the index would hold over a million entries), gives an empty vector.
 pub fn swin_relative_index(wh: usize, ww: usize) -> Vec<usize> {
     let n = wh.saturating_mul(ww);
@@ -531,7 +537,12 @@ pub fn swin_relative_index(wh: usize, ww: usize) -> Vec<usize> {
 /// Recognises an integer buffer equal to [`swin_relative_index`] for some window.
 ///
 /// Accepts shapes (N, N), (1, N, N) or (N²,) with N = wh·ww and returns `(wh, ww)`,
-/// trying square windows first. Edge cases: other shapes, N > 1024, or a mismatch
+/// trying square windows first:
+///
+/// ```text
+/// max(values) + 1 = (2wh − 1)(2ww − 1)   and   values = swin_relative_index(wh, ww)
+/// ```
+/// Edge cases: other shapes, N > 1024, or a mismatch
 /// give `None`.
 pub fn is_swin_index(values: &[i64], shape: &[usize]) -> Option<(usize, usize)> {
     let dims: Vec<usize> = shape.iter().copied().filter(|&d| d != 1).collect();
@@ -562,6 +573,11 @@ pub fn is_swin_index(values: &[i64], shape: &[usize]) -> Option<(usize, usize)> 
 }
 
 /// Analyses a window-style ((2h−1)(2w−1), heads) bias table.
+///
+/// ```text
+/// row r ↦ (dy, dx) = (r div (2w−1) − (h−1),  r mod (2w−1) − (w−1))
+/// map_head[dy + h − 1][dx + w − 1] = table[r, head]
+/// ```
 ///
 /// The window is `window` when given, else the square window with
 /// `2w − 1 = √rows`. Row r holds offset `dy = r / (2w−1) − (h−1)`,

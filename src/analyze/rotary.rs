@@ -93,6 +93,8 @@ pub struct WavelengthSummary {
     pub beyond_context: Option<usize>,
     /// Index of the first such frequency.
     pub first_index_beyond_context: Option<usize>,
+    /// Dimensions driven by those frequencies (two per frequency).
+    pub dimensions_beyond_context: Option<usize>,
 }
 
 /// Phase error caused by rounded frequencies at one position.
@@ -262,6 +264,7 @@ fn wavelength_summary(freqs: &[f64], context: Option<usize>) -> Option<Wavelengt
         context,
         beyond_context: beyond,
         first_index_beyond_context: first,
+        dimensions_beyond_context: beyond.map(|b| 2 * b),
     })
 }
 
@@ -868,6 +871,11 @@ fn llama3_scale(freqs: &[f64], factor: f64, lff: f64, hff: f64, old: f64) -> Vec
 }
 
 /// Rotary analysis from config values alone (no stored vector).
+///
+/// ```text
+/// ω = frequencies_from_config(theta, head_dim, rope_scaling)   (HF rope types, §6.1–6.6)
+/// analysis = analyze_inv_freq(ω, hints from the config)
+/// ```
 ///
 /// Builds the frequencies with [`frequencies_from_config`] and reads them back with
 /// [`analyze_inv_freq`] (so a config and a stored vector are described the same way);
