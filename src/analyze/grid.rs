@@ -864,6 +864,17 @@ mod tests {
         assert!(sincos_2d(2, 2, 6, true).is_none());
     }
 
+    #[test]
+    fn serialises_the_contract_fields() {
+        // design.md: "grid": {"height": 14, "width": 14, "extra_rows": 1}
+        let t = mae_table(14, 64);
+        let l = infer_grid(197, &[1, 197, 64], &GridHints::default()).unwrap();
+        let j = serde_json::to_value(analyze_grid(t.view(), &l)).unwrap();
+        assert_eq!(j["height"], serde_json::json!(14));
+        assert_eq!(j["width"], serde_json::json!(14));
+        assert_eq!(j["extra_rows"], serde_json::json!(1));
+    }
+
     proptest::proptest! {
         #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
 

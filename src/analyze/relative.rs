@@ -1025,6 +1025,21 @@ mod tests {
         assert!(swin_relative_index(0, 7).is_empty());
     }
 
+    #[test]
+    fn serialises_the_contract_fields() {
+        // design.md: "relative": {"buckets": 32, "heads": 12, "bidirectional": true, "unreachable": [16]}
+        let t = Array2::from_shape_fn((32, 12), |(b, h)| -((1 + b) as f64).ln() * (1 + h) as f64);
+        let hints = RelativeHints {
+            bidirectional: Some(true),
+            ..Default::default()
+        };
+        let j = serde_json::to_value(analyze_t5(t.view(), &hints)).unwrap();
+        assert_eq!(j["buckets"], serde_json::json!(32));
+        assert_eq!(j["heads"], serde_json::json!(12));
+        assert_eq!(j["bidirectional"], serde_json::json!(true));
+        assert_eq!(j["unreachable"], serde_json::json!([16]));
+    }
+
     proptest::proptest! {
         #![proptest_config(proptest::prelude::ProptestConfig::with_cases(128))]
 

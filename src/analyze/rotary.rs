@@ -1476,6 +1476,16 @@ mod tests {
         assert_eq!(a.scaling, "unknown");
     }
 
+    #[test]
+    fn serialises_the_contract_fields() {
+        // design.md "JSON documents": "rotary": {"base": 10000.0, "scaling": "none", "factor": 1.0}
+        let a = analyze(&inv_freq(1e4, 128), &RotaryHints::default());
+        let j = serde_json::to_value(&a).unwrap();
+        assert_eq!(j["base"], serde_json::json!(10000.0));
+        assert_eq!(j["scaling"], serde_json::json!("none"));
+        assert_eq!(j["factor"], serde_json::json!(1.0));
+    }
+
     /// The contract's scaling names (design.md, "Rotary `scaling`").
     const SCALINGS: [&str; 5] = ["none", "linear", "ntk", "wavelength-ramp", "unknown"];
 
