@@ -1,3 +1,7 @@
 //! Pure numerical analyses of position tables: functions over `ndarray` views, no I/O,
 //! no printing. Each submodule is one idea; each returns a serialisable result struct
 //! that goes straight into the report model.
+pub mod grid;
+pub mod position_ids;
+pub mod relative;
+pub mod rotary;
