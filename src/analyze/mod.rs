@@ -1,3 +1,11 @@
 //! Pure numerical analyses of position tables: functions over `ndarray` views, no I/O,
 //! no printing. Each submodule is one idea; each returns a serialisable result struct
 //! that goes straight into the report model.
+
+pub mod hygiene;
+pub mod neighbours;
+pub mod norms;
+pub mod periodicity;
+pub mod ranges;
+pub mod spectrum;
+pub mod waves;
