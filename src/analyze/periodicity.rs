@@ -46,7 +46,7 @@ pub fn autocorrelation(table: ArrayView2<f64>, max_lag: usize) -> Option<Autocor
         let m = col.sum() / n as f64;
         let c: Vec<f64> = col.iter().map(|v| v - m).collect();
         let denom: f64 = c.iter().map(|v| v * v).sum();
-        if !(denom > 0.0) {
+        if denom.is_nan() || denom <= 0.0 {
             continue;
         }
         for (k, s) in (1..=kmax).zip(sum.iter_mut()) {
@@ -93,7 +93,7 @@ pub struct RepeatedBlock {
 /// qualifies, for tables with fewer than 2 rows, or for a negative or NaN tolerance.
 pub fn repeated_block(table: ArrayView2<f64>, tolerance: f64) -> Option<RepeatedBlock> {
     let (n, d) = table.dim();
-    if n < 2 || d == 0 || !(tolerance >= 0.0) {
+    if n < 2 || d == 0 || tolerance.is_nan() || tolerance < 0.0 {
         return None;
     }
     // Fixed pseudo-random projections (xorshift64, invented seed), values in [−1, 1].

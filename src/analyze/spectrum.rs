@@ -120,7 +120,7 @@ pub fn effective_rank(singular_values: &[f64]) -> f64 {
         .filter(|s| s.is_finite() && *s > 0.0)
         .collect();
     let sum: f64 = pos.iter().sum();
-    if pos.is_empty() || !(sum > 0.0) || !sum.is_finite() {
+    if pos.is_empty() || sum <= 0.0 || !sum.is_finite() {
         return 0.0;
     }
     let entropy: f64 = pos

@@ -52,7 +52,7 @@ pub fn dominant_wave(x: ArrayView1<f64>) -> Option<Wave> {
     let mean = x.sum() / n as f64;
     let tss: f64 = x.iter().map(|v| (v - mean).powi(2)).sum();
     let scale = x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-    if !(tss > (f64::EPSILON * scale).powi(2) * n as f64) {
+    if tss.is_nan() || tss <= (f64::EPSILON * scale).powi(2) * n as f64 {
         return None;
     }
     let big_n = (16 * n).max(64).next_power_of_two();

@@ -3,7 +3,7 @@
 use faer::{Mat, MatRef, Side};
 use ndarray::{Array2, ArrayView2};
 
-use super::{LinalgError, faer_to_ndarray, standard};
+use super::{LinalgError, SvdParts, faer_to_ndarray, standard};
 
 /// faer follows the global parallelism set in `super::set_threads`; nothing else to do.
 pub(super) fn set_threads(_n: usize) {}
@@ -38,9 +38,7 @@ pub(super) fn eigvalsh(g: ArrayView2<f64>) -> Result<Vec<f64>, LinalgError> {
 }
 
 /// Exact thin SVD: values (non-increasing), U (n×p) and V (d×p), p = min(n, d).
-pub(super) fn thin_svd(
-    a: ArrayView2<f64>,
-) -> Result<(Vec<f64>, Array2<f64>, Array2<f64>), LinalgError> {
+pub(super) fn thin_svd(a: ArrayView2<f64>) -> Result<SvdParts, LinalgError> {
     let data = standard(a);
     let svd = view(&data, a)
         .thin_svd()

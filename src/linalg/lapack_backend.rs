@@ -4,7 +4,7 @@
 use ndarray::{Array2, ArrayView2, s};
 use ndarray_linalg::{EigValsh, Eigh, JobSvd, QR, SVDDC, UPLO};
 
-use super::LinalgError;
+use super::{LinalgError, SvdParts};
 
 unsafe extern "C" {
     fn openblas_set_num_threads(num_threads: std::ffi::c_int);
@@ -38,9 +38,7 @@ pub(super) fn eigvalsh(g: ArrayView2<f64>) -> Result<Vec<f64>, LinalgError> {
 }
 
 /// Exact thin SVD via `gesdd`: values (non-increasing), U (n×p) and V (d×p).
-pub(super) fn thin_svd(
-    a: ArrayView2<f64>,
-) -> Result<(Vec<f64>, Array2<f64>, Array2<f64>), LinalgError> {
+pub(super) fn thin_svd(a: ArrayView2<f64>) -> Result<SvdParts, LinalgError> {
     let (u, sv, vt) = a.svddc(JobSvd::Some).map_err(err)?;
     let (Some(u), Some(vt)) = (u, vt) else {
         return Err(LinalgError::NoConvergence);

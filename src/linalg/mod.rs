@@ -67,6 +67,9 @@ pub const BACKEND: &str = if cfg!(feature = "lapack") {
     "faer"
 };
 
+/// Exact thin SVD parts from a backend: values (non-increasing), U (n×p), V (d×p).
+type SvdParts = (Vec<f64>, Array2<f64>, Array2<f64>);
+
 /// Relative threshold below which Gram-matrix singular values are refined (see module doc).
 const REFINE_BELOW: f64 = 1e-2;
 
