@@ -1,7 +1,15 @@
 //! Pure numerical analyses of position tables: functions over `ndarray` views, no I/O,
 //! no printing. Each submodule is one idea; each returns a serialisable result struct
 //! that goes straight into the report model.
+
 pub mod grid;
+pub mod hygiene;
+pub mod neighbours;
+pub mod norms;
+pub mod periodicity;
 pub mod position_ids;
+pub mod ranges;
 pub mod relative;
 pub mod rotary;
+pub mod spectrum;
+pub mod waves;
