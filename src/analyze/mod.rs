@@ -2,3 +2,4 @@
 //! no printing. Each submodule is one idea; each returns a serialisable result struct
 //! that goes straight into the report model.
 pub mod sinusoid;
+pub mod untrained;

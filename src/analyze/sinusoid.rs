@@ -1295,7 +1295,9 @@ mod tests {
         let dirs: Vec<Array1<f64>> = (0..6)
             .map(|_| Array1::from_shape_fn(d, |_| rng.normal() * 0.05))
             .collect();
-        let phases: Vec<f64> = (0..6).map(|_| rng.uniform() * std::f64::consts::TAU).collect();
+        let phases: Vec<f64> = (0..6)
+            .map(|_| rng.uniform() * std::f64::consts::TAU)
+            .collect();
         Array2::from_shape_fn((n, d), |(r, j)| {
             let t = r as f64 / n as f64;
             let mut v = 0.0;
