@@ -763,18 +763,22 @@ fn refine_frequency(
     offset: i64,
     start: f64,
 ) -> f64 {
+    // (position, observed angle) once per pair, reused by every window and iteration.
+    let obs: Vec<(f64, f64)> = live
+        .iter()
+        .map(|&r| (r as f64 - offset as f64, table[[r, s]].atan2(table[[r, c]])))
+        .collect();
     let mut w = start;
     let mut limit = 64.0;
     loop {
         let mut accepted = w;
         for _ in 0..2 {
             let (mut num, mut den, mut sq, mut m) = (0.0, 0.0, 0.0, 0.0);
-            for &r in live {
-                let p = r as f64 - offset as f64;
+            for &(p, theta) in &obs {
                 if p.abs() > limit {
                     continue;
                 }
-                let res = wrap(table[[r, s]].atan2(table[[r, c]]) - accepted * p);
+                let res = wrap(theta - accepted * p);
                 num += p * res;
                 den += p * p;
                 sq += res * res;

