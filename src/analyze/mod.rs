@@ -11,5 +11,7 @@ pub mod position_ids;
 pub mod ranges;
 pub mod relative;
 pub mod rotary;
+pub mod sinusoid;
 pub mod spectrum;
+pub mod untrained;
 pub mod waves;
