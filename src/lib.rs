@@ -7,6 +7,7 @@
 #![deny(missing_docs)]
 
 pub mod analyze;
+pub mod audit;
 pub mod checkpoint;
 pub mod cli;
 pub mod config;

@@ -5,4 +5,5 @@
 //! report and the SVG plots are renderings of the same structs.
 
 pub mod model;
+pub mod output;
 pub mod terminal;

@@ -1,0 +1,350 @@
+//! Audits of the kinds that are not 1-D tables: patch grids, relative-bias tables,
+//! rotary frequencies and position-id buffers. Each function turns the pure analysis of
+//! its kind into the table's verdict and findings.
+
+use ndarray::{Array2, ArrayView1};
+
+use crate::analyze::grid::{self, GridHints};
+use crate::analyze::position_ids;
+use crate::analyze::relative::{self, RelativeHints};
+use crate::analyze::rotary::{self, RotaryAnalysis, RotaryHints};
+use crate::config::ConfigHints;
+use crate::report::model::{Finding, Severity};
+
+use super::TableAudit;
+
+fn hint_usize(h: &Option<crate::config::Hint<u64>>) -> Option<usize> {
+    h.as_ref().and_then(|h| usize::try_from(h.value).ok())
+}
+
+/// Audits a patch-position grid.
+pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigHints>) {
+    let hints = GridHints {
+        image_size: config.and_then(|c| hint_usize(&c.image_size)).map(|s| (s, s)),
+        patch_size: config.and_then(|c| hint_usize(&c.patch_size)).map(|s| (s, s)),
+        extra_rows: None,
+    };
+    let Some(layout) = grid::infer_grid(table.nrows(), &audit.shape, &hints) else {
+        audit.verdict = format!("no grid layout fits {} rows", table.nrows());
+        audit.findings.push(Finding {
+            code: "grid-layout-unknown",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("No square grid (with 0-8 extra rows) or config image/patch size fits {} rows.", table.nrows()),
+            evidence: format!("shape {:?}", audit.shape),
+            limits: "Non-square grids need image_size and patch_size in config.json.".into(),
+        });
+        return;
+    };
+    let a = grid::analyze_grid(table.view(), &layout);
+    let extra = layout.extra_rows;
+    let mut verdict = format!("{}x{} grid + {} extra row(s)", layout.height, layout.width, extra);
+    if let Some(fixed) = &a.fixed_sincos {
+        if fixed.matches {
+            verdict = format!(
+                "{verdict}; fixed 2-D sin-cos grid (first half of the columns encodes the {} index, max error {:.2e})",
+                fixed.first_half_axis, fixed.max_abs_error
+            );
+            audit.findings.push(Finding {
+                code: "fixed-grid",
+                severity: Severity::Info,
+                positions: Some([extra, table.nrows()]),
+                message: format!(
+                    "The grid is the fixed 2-D sin-cos formula, not learned; the first half of the columns encodes the {} index.",
+                    fixed.first_half_axis
+                ),
+                evidence: format!(
+                    "max abs error {:.2e} against the formula (tolerance {:.1e}); {:.2e} with the axes swapped",
+                    fixed.max_abs_error, fixed.tolerance, fixed.max_abs_error_other_order
+                ),
+                limits: "A fixed grid is not trained: nothing about training can be read from it.".into(),
+            });
+        }
+    }
+    if let Some(s) = &a.separability {
+        verdict = format!("{verdict}; additive row+column model explains {:.0}%", 100.0 * s.additive);
+    }
+    if a.odd_patch_count > 0 {
+        let rows: Vec<usize> = a.odd_patches.iter().map(|p| p.table_row).collect();
+        let first = rows.iter().min().copied().unwrap_or(extra);
+        let last = rows.iter().max().copied().unwrap_or(extra) + 1;
+        let noise_like = a.noise_like_fraction.unwrap_or(0.0);
+        audit.findings.push(Finding {
+            code: "untrained-rows",
+            severity: Severity::Warning,
+            positions: Some([first, last]),
+            message: format!(
+                "{} of {} patches look unlike their grid neighbours (e.g. patch ({}, {}): {}).",
+                a.odd_patch_count,
+                layout.height * layout.width,
+                a.odd_patches.first().map(|p| p.row).unwrap_or(0),
+                a.odd_patches.first().map(|p| p.col).unwrap_or(0),
+                a.odd_patches.first().map(|p| p.reason.as_str()).unwrap_or("")
+            ),
+            evidence: format!("noise-like share of patches {:.2}; median patch norm {:.4}", noise_like, a.norm_median.unwrap_or(f64::NAN)),
+            limits: "Patches at image borders are often less trained; check with images whose content reaches the edges before re-initialising.".into(),
+        });
+    }
+    audit.positions = Some(layout.height * layout.width);
+    audit.verdict = verdict;
+    audit.grid = Some(a);
+}
+
+/// Audits a relative-bias table: T5 buckets or a windowed (Swin-style) offset table.
+pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigHints>) {
+    let lower = audit.name.to_ascii_lowercase();
+    let swin = lower.contains("relative_position_bias_table");
+    let a = if swin {
+        let window = config.and_then(|c| hint_usize(&c.window_size)).map(|w| (w, w));
+        let init = config.and_then(|c| c.initializer_range.as_ref().map(|h| h.value)).or(Some(0.02));
+        relative::analyze_swin(table.view(), window, init)
+    } else {
+        let bidirectional = if lower.contains("decoder") {
+            Some(false)
+        } else if lower.contains("encoder") {
+            Some(true)
+        } else {
+            None
+        };
+        // T5 initialises the bias with normal(0, factor·d_model^-0.5), factor 1.0
+        // (check-values §5.1).
+        let init_std = config
+            .and_then(|c| c.hidden_size.as_ref())
+            .map(|h| (h.value as f64).powf(-0.5));
+        relative::analyze_t5(
+            table.view(),
+            &RelativeHints {
+                bidirectional,
+                num_buckets: config.and_then(|c| hint_usize(&c.relative_buckets)),
+                max_distance: config.and_then(|c| hint_usize(&c.relative_max_distance)),
+                init_std,
+                name: Some(audit.name.clone()),
+            },
+        )
+    };
+    if let Some(p) = &a.problem {
+        audit.findings.push(Finding {
+            code: "analysis-problem",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("The relative-bias analysis could not run fully: {p}."),
+            evidence: String::new(),
+            limits: String::new(),
+        });
+    }
+    for row in &a.unreachable_rows {
+        match row.looks_like_init {
+            Some(false) => audit.findings.push(Finding {
+                code: "unreachable-bucket-altered",
+                severity: Severity::Warning,
+                positions: Some([row.bucket, row.bucket + 1]),
+                message: format!(
+                    "Bucket {} is never produced by the bucket function, so it cannot have been trained, yet it does not look like its initial values.",
+                    row.bucket
+                ),
+                evidence: format!(
+                    "rms {:.4}, mean {:.4}; reachable rows' median rms {:.4}; rms / init std {}",
+                    row.rms,
+                    row.mean,
+                    row.reachable_rms_median,
+                    row.rms_over_init_std.map(|v| format!("{v:.2}")).unwrap_or_else(|| "unknown".into())
+                ),
+                limits: "The row was written by something other than training (a conversion, a different init, or an edit); it has no effect on attention.".into(),
+            }),
+            Some(true) => audit.findings.push(Finding {
+                code: "unreachable-bucket",
+                severity: Severity::Info,
+                positions: Some([row.bucket, row.bucket + 1]),
+                message: format!("Bucket {} is never produced by the bucket function and still holds its initial values, as expected.", row.bucket),
+                evidence: format!("rms {:.4}, mean {:.4}", row.rms, row.mean),
+                limits: "Expected for this bucket layout; nothing to do.".into(),
+            }),
+            None => {}
+        }
+    }
+    if !a.untrained_heads.is_empty() {
+        audit.findings.push(Finding {
+            code: "untrained-heads",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("Head(s) {:?} show no trend with distance and look like initial noise.", a.untrained_heads),
+            evidence: a
+                .head_trends
+                .iter()
+                .filter(|h| h.looks_untrained)
+                .map(|h| format!("head {}: {} (std {:.4})", h.head, h.trend, h.std))
+                .collect::<Vec<_>>()
+                .join("; "),
+            limits: "A head can legitimately ignore distance; confirm with attention patterns on real inputs.".into(),
+        });
+    }
+    let decaying = a.head_trends.iter().filter(|h| h.trend.contains("decay")).count();
+    audit.verdict = format!(
+        "{} table, {} buckets x {} heads, {}; {} of {} heads decay with distance",
+        a.style,
+        a.buckets,
+        a.heads,
+        if a.bidirectional { "bidirectional" } else { "causal" },
+        decaying,
+        a.heads
+    );
+    audit.positions = Some(a.buckets);
+    audit.dim = Some(a.heads);
+    audit.relative = Some(a);
+}
+
+fn rotary_hints(config: Option<&ConfigHints>, len: usize) -> RotaryHints {
+    let original = config
+        .and_then(|c| c.rope_scaling.as_ref())
+        .and_then(|h| h.value.get("original_max_position_embeddings"))
+        .and_then(|v| v.as_u64())
+        .and_then(|v| usize::try_from(v).ok());
+    let head_dim = config.and_then(|c| {
+        hint_usize(&c.head_dim).or_else(|| Some(hint_usize(&c.hidden_size)? / hint_usize(&c.num_heads)?.max(1)))
+    });
+    let partial = config.and_then(|c| c.partial_rotary_factor.as_ref()).map(|h| h.value).unwrap_or(1.0);
+    let rotary_dim = head_dim
+        .map(|h| ((h as f64) * partial).round() as usize)
+        .filter(|d| d.div_ceil(2) == len);
+    RotaryHints {
+        declared_context: config.and_then(|c| hint_usize(&c.max_positions)),
+        original_context: original,
+        config_theta: config.and_then(|c| c.rope_theta.as_ref()).map(|h| h.value),
+        rotary_dim,
+    }
+}
+
+/// Findings and verdict shared by stored and config-derived rotary analyses.
+pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
+    let mut findings = Vec::new();
+    let base = a.base.map(|b| format!("{b:.6}")).unwrap_or_else(|| "unknown".into());
+    let mut verdict = format!("base {base}, scaling {}", a.scaling);
+    if a.scaling != "none" {
+        verdict = format!("{verdict} (factor {:.4})", a.factor);
+        let detail = if let Some(r) = &a.ramp {
+            format!(
+                "frequencies {}..{} kept, {}..{} smoothed, {}..{} divided; original context {}",
+                r.unchanged.0,
+                r.unchanged.1,
+                r.smoothed.0,
+                r.smoothed.1,
+                r.divided.0,
+                r.divided.1,
+                r.original_context.map(|c| format!("{c:.0}")).unwrap_or_else(|| "unknown".into())
+            )
+        } else if let Some(alpha) = a.ntk_alpha {
+            format!("base enlarged by NTK alpha {alpha:.4} from {}", a.original_base.map(|b| format!("{b}")).unwrap_or_default())
+        } else {
+            format!("factor {:.4}", a.factor)
+        };
+        findings.push(Finding {
+            code: "rotary-scaled",
+            severity: Severity::Info,
+            positions: None,
+            message: format!("Rotary frequencies are rescaled ({}), implying a context extension by {:.4}x.", a.scaling, a.factor),
+            evidence: detail,
+            limits: "The recipe is read from the frequencies alone; the fine-tuning that should accompany it is not visible here.".into(),
+        });
+    }
+    if let Some(p) = &a.low_precision {
+        let worst = p.phase_error.iter().map(|e| format!("{:.2} rad at {}", e.radians, e.position)).collect::<Vec<_>>().join(", ");
+        findings.push(Finding {
+            code: "low-precision",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("The stored frequencies are exactly the {} rounding of the exact ones: they were cast to {} at some point.", p.dtype, p.dtype),
+            evidence: format!(
+                "{} of {} entries equal the rounded exact value; max relative error {:.2e}; phase error {}",
+                p.entries_matching_rounded_exact, p.entries, p.max_rel_error, worst
+            ),
+            limits: "Inference code that recomputes the frequencies in f32 is unaffected; code that uses the stored buffer inherits the phase error.".into(),
+        });
+    }
+    if let Some(w) = &a.wavelengths
+        && let (Some(ctx), Some(beyond)) = (w.context, w.beyond_context)
+        && beyond > 0
+    {
+        verdict = format!("{verdict}; {beyond} frequencies never complete a turn within {ctx} tokens");
+    }
+    if let Some(p) = &a.problem {
+        findings.push(Finding {
+            code: "analysis-problem",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("The rotary analysis could not run fully: {p}."),
+            evidence: String::new(),
+            limits: String::new(),
+        });
+    }
+    (verdict, findings)
+}
+
+/// Audits stored rotary frequencies (inverse frequencies, or GGUF per-dimension divisors).
+pub fn rotary(audit: &mut TableAudit, values: ArrayView1<f64>, config: Option<&ConfigHints>) {
+    let hints = rotary_hints(config, values.len());
+    let lower = audit.name.to_ascii_lowercase();
+    let divisors = lower.contains("rope_freqs") || lower.contains("rope_factors") || lower.contains("rope.freqs") && values.iter().all(|v| *v >= 1.0);
+    let a = if divisors {
+        let base = hints.config_theta.unwrap_or(10000.0);
+        rotary::analyze_rope_factors(values, base, &hints)
+    } else {
+        rotary::analyze_inv_freq(values, &hints)
+    };
+    let (verdict, findings) = rotary_findings(&a);
+    audit.verdict = verdict;
+    audit.findings.extend(findings);
+    audit.positions = None;
+    audit.dim = Some(a.rotary_dim);
+    audit.rotary = Some(a);
+}
+
+/// The config-derived rotary entry, when the config names a rotary base.
+pub fn rotary_from_config(config: Option<&ConfigHints>) -> Option<RotaryAnalysis> {
+    let c = config?;
+    let theta = c.rope_theta.as_ref()?.value;
+    let head_dim = hint_usize(&c.head_dim).or_else(|| Some(hint_usize(&c.hidden_size)? / hint_usize(&c.num_heads)?.max(1)))?;
+    let partial = c.partial_rotary_factor.as_ref().map(|h| h.value).unwrap_or(1.0);
+    let rotary_dim = ((head_dim as f64) * partial).round() as usize;
+    Some(rotary::rotary_from_config(
+        theta,
+        rotary_dim,
+        c.rope_scaling.as_ref().map(|h| &h.value),
+        hint_usize(&c.max_positions),
+    ))
+}
+
+/// Audits an integer position-id buffer.
+pub fn position_ids(audit: &mut TableAudit, values: &[i64], table_rows: Option<usize>) {
+    let check = position_ids::check_position_ids(values);
+    if check.contiguous {
+        audit.verdict = format!("0..{} consecutive (offset {})", check.length, check.offset);
+    } else {
+        audit.verdict = "not a consecutive index".into();
+        audit.findings.push(Finding {
+            code: "position-ids-mismatch",
+            severity: Severity::Warning,
+            positions: check.first_mismatch.map(|i| [i, check.length]),
+            message: format!(
+                "The buffer is not the consecutive index offset..offset+n; first mismatch at element {}.",
+                check.first_mismatch.map(|i| i.to_string()).unwrap_or_else(|| "?".into())
+            ),
+            evidence: format!("values range {:?}, length {}", check.value_range, check.length),
+            limits: "Some models build position ids at run time and never read this buffer.".into(),
+        });
+    }
+    if let Some(rows) = table_rows
+        && check.contiguous
+        && check.length as u64 + check.offset.max(0) as u64 > rows as u64
+    {
+        audit.findings.push(Finding {
+            code: "length-mismatch",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("The buffer indexes up to {} but the position table has {rows} rows.", check.length as i64 + check.offset),
+            evidence: format!("buffer length {}, offset {}", check.length, check.offset),
+            limits: "Indices past the table would fail at run time if this buffer were used.".into(),
+        });
+    }
+    audit.positions = Some(check.length);
+    audit.position_ids = Some(check);
+}

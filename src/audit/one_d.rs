@@ -1,0 +1,400 @@
+//! Audit of 1-D position tables (`learned-absolute` and `fixed-sinusoidal`): runs the
+//! profile analyses, the untrained-row detection or the formula fit, and turns their
+//! numbers into a verdict and findings with evidence and limits.
+
+use ndarray::{Array2, s};
+use serde::Serialize;
+
+use crate::analyze::hygiene::{self, Hygiene};
+use crate::analyze::neighbours::{self, CosineMatrix, LocalityProfile};
+use crate::analyze::norms::{self, NormProfile};
+use crate::analyze::periodicity::{self, Autocorrelation, RepeatedBlock};
+use crate::analyze::sinusoid;
+use crate::analyze::spectrum;
+use crate::analyze::untrained::{self, UntrainedHints};
+use crate::analyze::waves::{self, Wave};
+use crate::checkpoint::Dtype;
+use crate::config::ConfigHints;
+use crate::detect::Kind;
+use crate::report::model::{Finding, Severity};
+
+use super::TableAudit;
+
+/// Leading principal components kept for plots and waves.
+pub const COMPONENTS: usize = 8;
+/// Largest side of the downsampled position-by-position cosine matrix.
+pub const COSINE_MATRIX_SIDE: usize = 256;
+/// Largest distance of the locality profile.
+pub const LOCALITY_DISTANCE: usize = 128;
+
+/// The shape of a 1-D table along position: norms, neighbourhood, waves, periodicity,
+/// hygiene.
+#[derive(Debug, Clone, Serialize)]
+pub struct Profile {
+    /// Rows analysed (all rows, or the finite ones when some hold NaN/inf).
+    pub analysed_rows: usize,
+    /// Row norms, drift and robust outliers.
+    pub norms: NormProfile,
+    /// Cosine of each analysed row with the next (null where a row is zero).
+    pub neighbour_cosine: Vec<Option<f64>>,
+    /// Mean cosine against distance.
+    pub locality: LocalityProfile,
+    /// Downsampled position-by-position cosines (for the heatmap; not in the JSON).
+    #[serde(skip)]
+    pub cosine_matrix: CosineMatrix,
+    /// Dominant wave of each leading component, in component order.
+    pub waves: Vec<Option<Wave>>,
+    /// Autocorrelation along positions.
+    pub autocorrelation: Option<Autocorrelation>,
+    /// A block repeated along positions (a table extended by copying).
+    pub repeated_block: Option<RepeatedBlock>,
+    /// Zero, duplicate and non-finite rows.
+    pub hygiene: Hygiene,
+}
+
+/// Rows reserved before position 0 by a model family's indexing (never indexed, or
+/// used only for padding), from the config's model type: OPT and BART offset by 2
+/// (check-values §3.4, §3.5); RoBERTa-style models start at pad_token_id + 1 (§3.3).
+pub fn reserved_rows(config: Option<&ConfigHints>) -> usize {
+    let Some(c) = config else { return 0 };
+    match c.model_type.as_deref() {
+        Some("opt" | "bart" | "mbart" | "blenderbot" | "marian-learned") => 2,
+        Some("roberta" | "xlm-roberta" | "camembert" | "longformer" | "xlm-roberta-xl" | "data2vec-text") => c
+            .pad_token_id
+            .as_ref()
+            .and_then(|p| usize::try_from(p.value + 1).ok())
+            .unwrap_or(2),
+        _ => 0,
+    }
+}
+
+/// Rows the config says the table should have, and the key it came from.
+fn declared_rows(name: &str, config: Option<&ConfigHints>) -> Option<(usize, String)> {
+    let c = config?;
+    let lower = name.to_ascii_lowercase();
+    let hint = if lower.contains("encoder") && c.max_source_positions.is_some() {
+        c.max_source_positions.as_ref()
+    } else {
+        c.max_positions.as_ref()
+    }?;
+    let declared = usize::try_from(hint.value).ok()?;
+    let offset = match c.model_type.as_deref() {
+        Some("opt" | "bart" | "mbart" | "blenderbot") => 2,
+        _ => 0,
+    };
+    let why = if offset > 0 {
+        format!("{} {} + {offset} reserved rows ({})", hint.key, hint.value, c.model_type.as_deref().unwrap_or(""))
+    } else {
+        format!("{} {}", hint.key, hint.value)
+    };
+    Some((declared + offset, why))
+}
+
+fn profile(table: &Array2<f64>) -> (Profile, Array2<f64>, Vec<usize>) {
+    let hygiene = hygiene::hygiene(table.view());
+    let finite = hygiene::finite_rows(table.view());
+    let t = finite.table;
+    let n = t.nrows();
+    let profile = Profile {
+        analysed_rows: n,
+        norms: norms::norm_profile(t.view()),
+        neighbour_cosine: neighbours::adjacent_cosines(t.view()),
+        locality: neighbours::locality_profile(t.view(), LOCALITY_DISTANCE.min(n.saturating_sub(1))),
+        cosine_matrix: neighbours::cosine_matrix(t.view(), COSINE_MATRIX_SIDE),
+        waves: Vec::new(),
+        autocorrelation: periodicity::autocorrelation(t.view(), (n / 2).clamp(1, 512)),
+        repeated_block: periodicity::repeated_block(t.view(), 1e-6),
+        hygiene,
+    };
+    (profile, t, finite.indices)
+}
+
+fn range_text(r: [usize; 2]) -> String {
+    if r[1] == r[0] + 1 { format!("row {}", r[0]) } else { format!("rows {}..{}", r[0], r[1]) }
+}
+
+/// Audits one 1-D table (rows × dim) of the given storage type.
+pub fn audit_table(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype, config: Option<&ConfigHints>, warnings: &mut Vec<String>) {
+    let (n, d) = table.dim();
+    audit.positions = Some(n);
+    audit.dim = Some(d);
+    let (mut prof, finite, kept) = profile(table);
+    let h = &prof.hygiene;
+    if h.non_finite_count > 0 {
+        for r in &h.non_finite_rows {
+            audit.findings.push(Finding {
+                code: "non-finite",
+                severity: Severity::Error,
+                positions: Some(*r),
+                message: format!("{} holds NaN or infinite values; the analysis continues on the {} finite rows.", range_text(*r), kept.len()),
+                evidence: format!("{} non-finite values in all", h.non_finite_count),
+                limits: "Any forward pass that reads these rows produces NaN; they must be repaired or the run restarted from an earlier checkpoint.".into(),
+            });
+        }
+    }
+    if !h.duplicate_groups.is_empty() {
+        let first = &h.duplicate_groups[0];
+        audit.findings.push(Finding {
+            code: "duplicate-rows",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("{} group(s) of bit-identical rows, e.g. rows {:?}.", h.duplicate_groups.len(), first),
+            evidence: format!("groups: {:?}", h.duplicate_groups.iter().take(5).collect::<Vec<_>>()),
+            limits: "Identical rows make those positions indistinguishable to the model; a copy-based extension or a bug in a conversion script are the usual causes.".into(),
+        });
+    }
+    if finite.nrows() < 2 {
+        audit.verdict = "too few finite rows to analyse".into();
+        audit.profile = Some(prof);
+        return;
+    }
+    match spectrum::spectrum(finite.view(), COMPONENTS) {
+        Ok(sp) => {
+            prof.waves = sp
+                .components
+                .iter()
+                .map(|c| waves::dominant_wave(ndarray::ArrayView1::from(c.as_slice())))
+                .collect();
+            audit.spectrum = Some(sp);
+        }
+        Err(e) => warnings.push(format!("{}: spectrum not computed: {e}", audit.name)),
+    }
+    if let Some(b) = &prof.repeated_block {
+        audit.findings.push(Finding {
+            code: "repeated-block",
+            severity: Severity::Info,
+            positions: Some([b.start, b.end]),
+            message: format!("Rows {}..{} repeat with a period of {} rows: the table was extended by copying a shorter one.", b.start, b.end, b.period),
+            evidence: format!("{} rows covered, max abs difference {:.2e}", b.rows_covered, b.max_abs_difference),
+            limits: "Copies that were trained afterwards drift apart; an exact repeat means the copied rows were not trained since.".into(),
+        });
+    }
+    if let Some((expected, why)) = declared_rows(&audit.name, config)
+        && expected != n
+    {
+        audit.findings.push(Finding {
+            code: "length-mismatch",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!("The table has {n} rows but the config implies {expected}."),
+            evidence: why,
+            limits: "Some families add reserved rows this tool does not know; check how the model computes position indices.".into(),
+        });
+    }
+    match audit.kind {
+        Kind::FixedSinusoidal => fixed(audit, &finite, dtype),
+        _ => learned(audit, &finite, &kept, &prof, config),
+    }
+    // Zero rows: padding rows are normal in fixed tables and RoBERTa-style learned ones.
+    let zero = &prof.hygiene.zero_rows;
+    if !zero.is_empty() {
+        let pad = config.and_then(|c| c.pad_token_id.as_ref()).map(|p| p.value);
+        let at_pad = pad.is_some_and(|p| zero.len() == 1 && zero[0] == [p as usize, p as usize + 1]);
+        audit.findings.push(Finding {
+            code: "zero-rows",
+            severity: Severity::Info,
+            positions: zero.first().copied(),
+            message: format!(
+                "{} all-zero row(s): {}{}.",
+                prof.hygiene.zero_row_count,
+                zero.iter().take(4).map(|r| range_text(*r)).collect::<Vec<_>>().join(", "),
+                if at_pad { " (the padding row of pad_token_id)" } else { "" }
+            ),
+            evidence: "every value exactly 0.0".into(),
+            limits: "A zero padding row is the usual convention; a zero row that real positions index carries no position information.".into(),
+        });
+    }
+    let outliers: Vec<usize> = prof
+        .norms
+        .outliers
+        .iter()
+        .map(|&i| kept[i])
+        .filter(|r| !audit.untrained.as_ref().is_some_and(|u| u.ranges.iter().any(|x| x[0] <= *r && *r < x[1])))
+        .filter(|r| !zero.iter().any(|x| x[0] <= *r && *r < x[1]))
+        .collect();
+    if !outliers.is_empty() {
+        audit.findings.push(Finding {
+            code: "norm-outlier",
+            severity: Severity::Info,
+            positions: Some([outliers[0], outliers[0] + 1]),
+            message: format!("{} row(s) have a norm far from the others (robust z > 3.5), e.g. rows {:?}.", outliers.len(), &outliers[..outliers.len().min(6)]),
+            evidence: format!("median row norm {:.4}", prof.norms.median.unwrap_or(f64::NAN)),
+            limits: "Row 0 is often an outlier in trained tables (it is seen by every sequence); by itself this is not a defect.".into(),
+        });
+    }
+    audit.profile = Some(prof);
+}
+
+fn learned(audit: &mut TableAudit, table: &Array2<f64>, kept: &[usize], prof: &Profile, config: Option<&ConfigHints>) {
+    let n_all = audit.positions.unwrap_or(table.nrows());
+    let reserved = reserved_rows(config);
+    let hints = UntrainedHints {
+        init_std: config.and_then(|c| c.initializer_range.as_ref()).map(|h| h.value),
+        reserved_rows: reserved,
+        declared_positions: declared_rows(&audit.name, config).map(|x| x.0),
+    };
+    let report = untrained::detect_untrained(table.view(), &hints);
+    // Map analysed-row indices back to table rows when non-finite rows were dropped.
+    let to_table = |r: [usize; 2]| -> [usize; 2] {
+        let start = kept.get(r[0]).copied().unwrap_or(n_all);
+        let end = if r[1] == 0 { 0 } else { kept.get(r[1] - 1).map(|x| x + 1).unwrap_or(n_all) };
+        [start, end]
+    };
+    let ev = &report.evidence;
+    let evidence = format!(
+        "untrained rows: median neighbour cosine {} (independent rows give 0 ± {:.3}), median rms {}, median energy in the trained rows' leading subspace {}; trained rows: median neighbour cosine {}, rms {}; init std {}",
+        fmt_opt(ev.untrained.median_neighbour_cosine),
+        1.0 / (ev.dim.max(1) as f64).sqrt(),
+        fmt_opt(ev.untrained.median_rms),
+        fmt_opt(ev.untrained.median_subspace_energy),
+        fmt_opt(ev.trained.median_neighbour_cosine),
+        fmt_opt(ev.trained.median_rms),
+        match (ev.init_std_hint, ev.init_std_estimate) {
+            (Some(h), Some(e)) => format!("{h} from config, {e:.4} estimated"),
+            (Some(h), None) => format!("{h} from config"),
+            (None, Some(e)) => format!("{e:.4} estimated"),
+            _ => "unknown".into(),
+        }
+    );
+    let limits = "Evidence from the weights alone: these rows look like initial noise (unrelated to their neighbours, off the trained rows' subspace). Confirm on held-out sequences that reach these positions before re-initialising, truncating or extending from them.";
+    for r in &report.ranges {
+        let r = to_table(*r);
+        let tail = r[1] == n_all;
+        audit.findings.push(Finding {
+            code: if tail { "untrained-tail" } else { "untrained-rows" },
+            severity: Severity::Warning,
+            positions: Some(r),
+            message: if tail {
+                format!("Positions {}..{} ({} rows) look untrained: training probably never used sequences longer than {}.", r[0], r[1], r[1] - r[0], r[0].saturating_sub(reserved))
+            } else {
+                format!("{} look(s) untrained (never indexed, or only rarely).", range_text(r))
+            },
+            evidence: evidence.clone(),
+            limits: limits.into(),
+        });
+    }
+    for r in &report.fading {
+        let r = to_table(*r);
+        audit.findings.push(Finding {
+            code: "partially-trained",
+            severity: Severity::Info,
+            positions: Some(r),
+            message: format!("{} move gradually from trained structure towards noise: trained on few sequences that long.", range_text(r)),
+            evidence: evidence.clone(),
+            limits: "A fading range is the expected footprint of a length distribution with a thin tail; it is not a defect by itself.".into(),
+        });
+    }
+    if let Some(p) = &report.phase_boundary {
+        let row = kept.get(p.row).copied().unwrap_or(p.row);
+        audit.findings.push(Finding {
+            code: "phase-boundary",
+            severity: Severity::Info,
+            positions: Some([row, n_all]),
+            message: format!("The table's statistics change at row {row}: a model trained mostly at a shorter length, or a table extended later."),
+            evidence: format!("{} {:.4} before vs {:.4} after (effect {:.2}, window {})", p.statistic, p.before, p.after, p.effect, p.window),
+            limits: "The rows after the boundary are still trained; they may be less reliable than the rows before it.".into(),
+        });
+    }
+    let smooth = prof.neighbour_cosine.iter().flatten().copied().collect::<Vec<f64>>();
+    let median_cos = median(&smooth);
+    audit.verdict = match report.first {
+        Some(f) => format!("trained rows 0..{}, untrained tail from row {} ({} rows)", to_table([f, f + 1])[0], to_table([f, f + 1])[0], report.count),
+        None if report.count > 0 => format!("{} untrained row(s) outside a tail; the rest trained", report.count),
+        None => format!("all {n_all} rows look trained (median neighbour cosine {})", fmt_opt(median_cos)),
+    };
+    audit.untrained = Some(report);
+}
+
+fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
+    let half_ulp = dtype.half_ulp_below_one().unwrap_or(2f64.powi(-25));
+    let Some(fit) = sinusoid::fit_sinusoid(table.view(), half_ulp) else {
+        audit.verdict = "not a sine/cosine table".into();
+        audit.findings.push(Finding {
+            code: "sinusoid-mismatch",
+            severity: Severity::Error,
+            positions: Some([0, table.nrows()]),
+            message: "The table is named or shaped as a fixed sinusoid but its columns are not sine/cosine pairs of any base, layout or offset.".into(),
+            evidence: "no pairing of columns has sin² + cos² constant across rows (median radius spread above 10%)".into(),
+            limits: "If the table is meant to be learned, this is expected; if it is meant to be the formula, it was overwritten or trained.".into(),
+        });
+        return;
+    };
+    let mismatch_tolerance = (16.0 * half_ulp * fit.scale.max(1e-12)).max(1e-2 * fit.scale);
+    let describe = format!(
+        "base {}, {} layout, {} first, exponent {}, offset {}, max error {:.2e}",
+        fmt_num(fit.base),
+        serde_plain(&fit.layout),
+        if fit.sin_first { "sin" } else { "cos" },
+        serde_plain(&fit.exponent),
+        fit.offset,
+        fit.max_abs_error
+    );
+    let p = &fit.precision;
+    if p.computed_in_low_precision {
+        audit.verdict = format!("sinusoid computed in {}: {describe}", p.best_match.as_deref().unwrap_or("low precision"));
+        let by_range = p
+            .error_by_range
+            .iter()
+            .map(|b| format!("{:.3} at rows {}..{}", b.max_abs_error, b.start, b.end))
+            .collect::<Vec<_>>()
+            .join(", ");
+        audit.findings.push(Finding {
+            code: "low-precision",
+            severity: Severity::Warning,
+            positions: Some([0, table.nrows()]),
+            message: format!(
+                "The angles were computed in {} before the sine/cosine: errors grow with position far beyond the storage rounding.",
+                p.best_match.as_deref().unwrap_or("a low-precision type")
+            ),
+            evidence: format!(
+                "max error {:.3} = {:.0}x the {} half-ULP; by range: {by_range}; the simulated {} computation reproduces the table",
+                fit.max_abs_error,
+                p.error_to_half_ulp,
+                audit.dtype,
+                p.best_match.as_deref().unwrap_or("?")
+            ),
+            limits: "A model trained with this table has learned around its errors; recomputing it exactly changes what the model sees. Fix it for new training runs.".into(),
+        });
+    } else if fit.max_abs_error > mismatch_tolerance {
+        audit.verdict = format!("not the formula it resembles: {describe}");
+        audit.findings.push(Finding {
+            code: "sinusoid-mismatch",
+            severity: Severity::Error,
+            positions: Some([fit.worst_row, fit.worst_row + 1]),
+            message: format!("The table resembles a sinusoid but differs from the best-fitting formula by up to {:.3} (worst at row {}).", fit.max_abs_error, fit.worst_row),
+            evidence: format!("best fit: {describe}; tolerance {mismatch_tolerance:.2e}"),
+            limits: "A fixed table that was trained, edited or resized by interpolation drifts from the formula; compare with the code that builds it.".into(),
+        });
+    } else {
+        audit.verdict = format!("exact sinusoid: {describe}");
+    }
+}
+
+fn serde_plain<T: Serialize>(v: &T) -> String {
+    serde_json::to_value(v)
+        .ok()
+        .and_then(|v| v.as_str().map(str::to_string))
+        .unwrap_or_default()
+}
+
+fn fmt_num(x: f64) -> String {
+    if x.fract() == 0.0 && x.abs() < 1e15 { format!("{x:.0}") } else { format!("{x:.6}") }
+}
+
+fn fmt_opt(x: Option<f64>) -> String {
+    x.map(|v| format!("{v:.3}")).unwrap_or_else(|| "n/a".into())
+}
+
+fn median(v: &[f64]) -> Option<f64> {
+    if v.is_empty() {
+        return None;
+    }
+    let mut s = v.to_vec();
+    s.sort_by(f64::total_cmp);
+    Some(s[s.len() / 2])
+}
+
+#[allow(dead_code)]
+fn first_rows(t: &Array2<f64>, k: usize) -> Array2<f64> {
+    t.slice(s![..k.min(t.nrows()), ..]).to_owned()
+}
