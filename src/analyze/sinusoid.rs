@@ -1459,4 +1459,33 @@ mod tests {
         let constant = Array2::from_elem((20, 8), 0.5);
         assert!(fit_sinusoid(constant.view(), 1e-8).is_none());
     }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+        /// Never panics, whatever the shape and values (NaN, ±∞, zeros, huge numbers).
+        #[test]
+        fn never_panics_on_arbitrary_tables(
+            n in 0usize..24,
+            d in 0usize..24,
+            seed in proptest::prelude::any::<u64>(),
+            ulp in proptest::prelude::prop_oneof![proptest::prelude::Just(0.0), proptest::prelude::Just(f64::NAN), 1e-9f64..1e-2],
+        ) {
+            let mut rng = Rng(seed);
+            let specials = [0.0, f64::NAN, f64::INFINITY, -1e300, 1.0, -1.0];
+            let t = Array2::from_shape_fn((n, d), |_| {
+                if rng.uniform() < 0.1 { specials[(rng.next_u64() % 6) as usize] } else { rng.normal() }
+            });
+            let _ = fit_sinusoid(t.view(), ulp);
+            let rows: Vec<(usize, ArrayView1<f64>)> = (0..n).map(|r| (r, t.row(r))).collect();
+            let _ = probe_rows(&rows);
+            // A clean sinusoid of the same shape with random zeroed rows must not panic either.
+            if d >= 4 {
+                let mut s = generate(&vaswani(10000.0), n, d);
+                for r in 0..n {
+                    if rng.uniform() < 0.3 { s.row_mut(r).fill(0.0); }
+                }
+                let _ = fit_sinusoid(s.view(), ulp);
+            }
+        }
+    }
 }

@@ -749,6 +749,44 @@ mod tests {
     }
 
     #[test]
+    fn finds_tails_shrunk_by_weight_decay_or_drawn_from_a_truncated_normal() {
+        // check-values §8.5 (reasoning, b): decoupled weight decay shrinks untrained rows
+        // while they stay isotropic; invented factor 0.1 on an N(0, 0.02²) tail.
+        let mut rng = Rng(13);
+        let head = smooth(&mut rng, 200, 768, 8, 0.002);
+        let table = with_noise_tail(&mut rng, head, 512, 0.002);
+        let rep = detect_untrained(table.view(), &hints(0.02));
+        assert!(
+            rep.first.is_some_and(|f| f.abs_diff(200) <= 2),
+            "{:?}",
+            rep.first
+        );
+        let ratio = rep.evidence.std_ratio_to_hint.unwrap();
+        assert!((ratio - 0.1).abs() < 0.01, "{ratio}");
+        // TF BERT's truncated_normal_initializer(0.02) redraws values beyond 2σ
+        // (check-values §3.2, §3.10); its std is 0.87963·σ (§3.2, a-calc with scipy).
+        let head = smooth(&mut rng, 128, 768, 8, 0.002);
+        let mut table = Array2::from_shape_fn((512, 768), |_| {
+            loop {
+                let z = rng.normal();
+                if z.abs() <= 2.0 {
+                    break 0.02 * z;
+                }
+            }
+        });
+        table.slice_mut(ndarray::s![..128, ..]).assign(&head);
+        let rep = detect_untrained(table.view(), &hints(0.02));
+        assert!(
+            rep.first.is_some_and(|f| f.abs_diff(128) <= 2),
+            "{:?}",
+            rep.first
+        );
+        assert_eq!(rep.count, 512 - rep.first.unwrap());
+        let ratio = rep.evidence.std_ratio_to_hint.unwrap();
+        assert!((ratio - 0.87963).abs() < 0.01, "{ratio}");
+    }
+
+    #[test]
     fn reports_a_never_indexed_reserved_row_that_is_not_a_tail() {
         // fairseq/RoBERTa layout (check-values §3.3): 514 rows, row 0 never indexed and
         // left at its N(0, d^-0.5) init, row 1 the zeroed padding row, rows 2.. trained
@@ -966,5 +1004,27 @@ mod tests {
         );
         let json = serde_json::to_string(&rep).unwrap();
         assert!(json.contains("\"first\""));
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(48))]
+        /// Never panics, whatever the shape, values and hints.
+        #[test]
+        fn never_panics_on_arbitrary_tables(
+            n in 0usize..80,
+            d in 0usize..80,
+            reserved in 0usize..100,
+            seed in proptest::prelude::any::<u64>(),
+        ) {
+            let mut rng = Rng(seed);
+            let specials = [0.0, f64::NAN, f64::INFINITY, -1e300, 1e-300];
+            let t = Array2::from_shape_fn((n, d), |_| {
+                if rng.uniform() < 0.05 { specials[(rng.next_u64() % 5) as usize] } else { rng.normal() }
+            });
+            let h = UntrainedHints { init_std: Some(0.0), reserved_rows: reserved, declared_positions: Some(n / 2) };
+            let rep = detect_untrained(t.view(), &h);
+            proptest::prop_assert_eq!(rep.count, rep.ranges.iter().map(|r| r[1] - r[0]).sum::<usize>());
+            proptest::prop_assert!(serde_json::to_string(&rep).is_ok());
+        }
     }
 }
