@@ -14,6 +14,9 @@ use super::{CheckpointError, SourceFile, Storage};
 
 /// Most members an archive may have (a state dict has one member per storage).
 const MAX_MEMBERS: usize = 4_000_000;
+/// Largest expansion deflate can achieve (258-byte matches coded in about 2 bits: about
+/// 1032:1, common practice), with a little slack.
+const MAX_INFLATE_RATIO: u64 = 1100;
 
 /// One member of a zip archive.
 #[derive(Debug, Clone)]
@@ -91,10 +94,24 @@ pub(crate) fn members(file: &SourceFile) -> Result<Vec<Member>, CheckpointError>
                     }
                 }
             }
-            CompressionMethod::Deflated => Storage::ZipMember {
-                member: name.clone(),
-                skip: 0,
-            },
+            CompressionMethod::Deflated => {
+                // Deflate expands at most about 1032:1; a larger declared size is a lie
+                // that would make the reader allocate it.
+                let plausible = entry.compressed_size().saturating_mul(MAX_INFLATE_RATIO);
+                if size > plausible.saturating_add(1024) {
+                    return Err(CheckpointError::invalid(
+                        &file.path,
+                        format!(
+                            "zip member `{name}` declares {size} bytes inflated from {} compressed bytes, more than deflate can expand",
+                            entry.compressed_size()
+                        ),
+                    ));
+                }
+                Storage::ZipMember {
+                    member: name.clone(),
+                    skip: 0,
+                }
+            }
             other => {
                 return Err(CheckpointError::invalid(
                     &file.path,

@@ -22,6 +22,7 @@
 //! about 500 lines we can audit, limited to what `torch.save` writes.
 
 use std::cell::RefCell;
+use std::collections::HashMap;
 use std::rc::Rc;
 
 /// Largest `data.pkl` we accept. A state dict's pickle is a few bytes per tensor plus its
@@ -93,6 +94,43 @@ pub enum Value {
     Opaque(Rc<str>),
     /// The stack mark.
     Mark,
+}
+
+/// Dropping a deeply nested value must not recurse once per level (a crafted pickle can
+/// nest millions of tuples with a few bytes each): children are moved to a work list.
+impl Drop for Value {
+    fn drop(&mut self) {
+        let mut work = Vec::new();
+        take_children(self, &mut work);
+        while let Some(mut v) = work.pop() {
+            take_children(&mut v, &mut work);
+        }
+    }
+}
+
+/// Moves the children of a container out when this is its last reference.
+fn take_children(v: &mut Value, out: &mut Vec<Value>) {
+    match v {
+        Value::Tuple(rc) => {
+            if let Some(items) = Rc::get_mut(rc) {
+                out.append(items);
+            }
+        }
+        Value::List(rc) => {
+            if let Some(items) = Rc::get_mut(rc) {
+                out.append(items.get_mut());
+            }
+        }
+        Value::Dict(rc) => {
+            if let Some(items) = Rc::get_mut(rc) {
+                for (k, v) in items.get_mut().drain(..) {
+                    out.push(k);
+                    out.push(v);
+                }
+            }
+        }
+        _ => {}
+    }
 }
 
 impl Value {
@@ -167,7 +205,7 @@ pub fn load(bytes: &[u8]) -> Result<Value, String> {
         pos: 0,
         stack: Vec::new(),
         marks: Vec::new(),
-        memo: Vec::new(),
+        memo: HashMap::new(),
     }
     .run()
 }
@@ -177,7 +215,7 @@ struct Machine<'a> {
     pos: usize,
     stack: Vec<Value>,
     marks: Vec<usize>,
-    memo: Vec<Option<Value>>,
+    memo: HashMap<u64, Value>,
 }
 
 impl<'a> Machine<'a> {
@@ -295,22 +333,18 @@ impl<'a> Machine<'a> {
 
     fn memo_put(&mut self, idx: u64) -> Result<(), String> {
         let v = self.top()?.clone();
-        let idx = usize::try_from(idx)
-            .ok()
-            .filter(|&i| i < MAX_MEMO)
-            .ok_or_else(|| format!("memo index {idx} exceeds the limit of {MAX_MEMO}"))?;
-        if idx >= self.memo.len() {
-            self.memo.resize(idx + 1, None);
+        if self.memo.len() >= MAX_MEMO && !self.memo.contains_key(&idx) {
+            return Err(format!("pickle memo exceeds {MAX_MEMO} entries"));
         }
-        self.memo[idx] = Some(v);
+        self.memo.insert(idx, v);
         Ok(())
     }
 
     fn memo_get(&mut self, idx: u64) -> Result<(), String> {
-        let v = usize::try_from(idx)
-            .ok()
-            .and_then(|i| self.memo.get(i))
-            .and_then(Clone::clone)
+        let v = self
+            .memo
+            .get(&idx)
+            .cloned()
             .ok_or_else(|| format!("memo entry {idx} read before it was written"))?;
         self.push(v)
     }
@@ -438,8 +472,8 @@ impl<'a> Machine<'a> {
                 0x93 => {
                     let name = self.pop()?;
                     let module = self.pop()?;
-                    match (module, name) {
-                        (Value::Str(m), Value::Str(n)) => self.global(&m, &n)?,
+                    match (&module, &name) {
+                        (Value::Str(m), Value::Str(n)) => self.global(m, n)?,
                         _ => return Err(format!("STACK_GLOBAL at byte {at} needs two strings")),
                     }
                 }
@@ -739,7 +773,8 @@ mod tests {
     fn reads_a_dict_with_a_memoized_value() {
         // {'a': 1, 'b': [1]} written by hand in protocol 2 (opcode table: pickletools docs).
         let p = b"\x80\x02}q\x00(X\x01\x00\x00\x00aK\x01X\x01\x00\x00\x00b]q\x01K\x01au.";
-        let Value::Dict(d) = load(p).unwrap() else {
+        let v = load(p).unwrap();
+        let Value::Dict(d) = &v else {
             panic!("not a dict")
         };
         let d = d.borrow();
@@ -754,6 +789,16 @@ mod tests {
         assert!(matches!(long_value(&[0x00, 0x01]), Value::Int(256)));
         assert!(matches!(long_value(&[0; 12]), Value::Int(0)));
         assert!(matches!(long_value(&[1; 12]), Value::BigInt));
+    }
+
+    #[test]
+    fn deep_nesting_drops_without_recursion() {
+        // 1.2 million TUPLE1 opcodes wrap an empty tuple 1.2 million levels deep.
+        let mut p = b"\x80\x02)".to_vec();
+        p.extend(std::iter::repeat_n(0x85u8, 1_200_000));
+        p.push(b'.');
+        let v = load(&p).unwrap();
+        drop(v);
     }
 
     #[test]
