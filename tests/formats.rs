@@ -528,3 +528,46 @@ fn mutated_fixtures_never_panic() {
     // Both outcomes occur: the mutations are neither all harmless nor all fatal.
     assert!(opened > 0 && opened < total, "{opened} of {total} opened");
 }
+
+#[test]
+fn mutated_pickles_never_panic() {
+    use std::io::Read;
+    let bytes = std::fs::read(fixture("torch_state_dict.pt")).unwrap();
+    let mut archive = zip::ZipArchive::new(std::io::Cursor::new(bytes)).unwrap();
+    let mut pkl = Vec::new();
+    archive
+        .by_name("torch_state_dict/data.pkl")
+        .unwrap()
+        .read_to_end(&mut pkl)
+        .unwrap();
+    assert!(posaudit::checkpoint::pickle::load(&pkl).is_ok());
+    let mut rng = Rng(0x2545_f491_4f6c_dd1d);
+    let mut ok = 0;
+    for i in 0..600 {
+        let mut b = pkl.clone();
+        if i % 2 == 0 {
+            for _ in 0..1 + rng.below(3) {
+                let at = rng.below(b.len());
+                b[at] = rng.next() as u8;
+            }
+        } else {
+            b.truncate(rng.below(b.len()));
+        }
+        let r = std::panic::catch_unwind(|| posaudit::checkpoint::pickle::load(&b).is_ok());
+        assert!(r.is_ok(), "mutation {i} panicked");
+        ok += r.unwrap() as usize;
+    }
+    eprintln!("{ok} of 600 mutated pickles loaded");
+}
+
+#[test]
+fn a_folder_with_one_checkpoint_file_opens_it_and_two_are_ambiguous() {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::copy(fixture("tables.gguf"), dir.path().join("tables.gguf")).unwrap();
+    let c = Checkpoint::open(dir.path()).unwrap();
+    assert_eq!(c.format.to_string(), "gguf");
+    assert_eq!(c.tensors.len(), 6);
+    std::fs::copy(fixture("tables.npz"), dir.path().join("tables.npz")).unwrap();
+    let e = Checkpoint::open(dir.path()).unwrap_err().to_string();
+    assert!(e.contains("2 candidate checkpoint files"), "{e}");
+}

@@ -159,7 +159,10 @@ fn allowed_global(module: &str, name: &str) -> bool {
     match module {
         "torch._utils" => matches!(
             name,
-            "_rebuild_tensor_v2" | "_rebuild_tensor" | "_rebuild_parameter"
+            "_rebuild_tensor_v2"
+                | "_rebuild_tensor"
+                | "_rebuild_parameter"
+                | "_rebuild_parameter_with_state"
         ),
         "collections" => name == "OrderedDict",
         "torch" => {
@@ -725,12 +728,14 @@ fn reduce(func: &Value, args: &Value, at: usize) -> Result<Value, String> {
                 stride,
             })))
         }
-        "torch._utils._rebuild_parameter" => match args_vec.first() {
-            Some(t @ Value::Tensor(_)) => Ok(t.clone()),
-            _ => Err(format!(
-                "{name} at byte {at}: first argument is not a tensor"
-            )),
-        },
+        "torch._utils._rebuild_parameter" | "torch._utils._rebuild_parameter_with_state" => {
+            match args_vec.first() {
+                Some(t @ Value::Tensor(_)) => Ok(t.clone()),
+                _ => Err(format!(
+                    "{name} at byte {at}: first argument is not a tensor"
+                )),
+            }
+        }
         "collections.OrderedDict" => {
             // OrderedDict() or OrderedDict([(k, v), ...]).
             let mut items = Vec::new();
