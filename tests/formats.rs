@@ -571,3 +571,25 @@ fn a_folder_with_one_checkpoint_file_opens_it_and_two_are_ambiguous() {
     let e = Checkpoint::open(dir.path()).unwrap_err().to_string();
     assert!(e.contains("2 candidate checkpoint files"), "{e}");
 }
+
+#[test]
+fn torch_shards_without_their_index_open_together() {
+    let dir = tempfile::tempdir().unwrap();
+    for shard in [
+        "pytorch_model-00001-of-00002.bin",
+        "pytorch_model-00002-of-00002.bin",
+    ] {
+        std::fs::copy(
+            fixture(&format!("torch_sharded/{shard}")),
+            dir.path().join(shard),
+        )
+        .unwrap();
+    }
+    let reference = open("reference.safetensors");
+    let c = Checkpoint::open(dir.path()).unwrap();
+    assert_eq!(c.files.len(), 2);
+    assert_eq!(names(&c), sorted(&BASE));
+    for name in BASE {
+        assert_same(&reference, name, &c, name);
+    }
+}

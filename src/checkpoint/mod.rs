@@ -658,6 +658,19 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
             )
         })
         .collect();
+    // torch shards without their index (`pytorch_model-00001-of-00002.bin`, ...).
+    let unindexed_shards = others.len() > 1
+        && others.iter().all(|p| {
+            let name = p.file_name().unwrap_or_default().to_string_lossy();
+            name.ends_with(".bin") && name.contains("-of-")
+        });
+    if unindexed_shards {
+        let files = others
+            .iter()
+            .map(|p| SourceFile::open(p))
+            .collect::<Result<Vec<_>, _>>()?;
+        return pytorch::open_files(files);
+    }
     match others.as_slice() {
         [one] => return open_file(one),
         [] => {}
