@@ -24,8 +24,11 @@ use super::{CheckpointError, Dtype, Format, Opened, SourceFile, TensorInfo};
 /// 0x1950a86a20f9469cfc6c as a 10-byte LONG1 (torch/serialization.py, `MAGIC_NUMBER`).
 const LEGACY_MAGIC: &[u8] = b"\x80\x02\x8a\x0a\x6c\xfc\x9c\x46\xf9\x20\x6a\xa8\x50\x19";
 
-/// Most tensors one pickle may describe, and most containers visited while flattening.
-const MAX_VISITS: usize = 10_000_000;
+/// Most containers and values visited while flattening (a crafted pickle can refer to
+/// one list many times, so the visits, not the pickle size, bound the work).
+const MAX_VISITS: usize = 5_000_000;
+/// Most tensors one checkpoint file may list.
+const MAX_TENSORS: usize = 1_000_000;
 /// Deepest container nesting followed when flattening names.
 const MAX_NESTING: usize = 64;
 
@@ -87,7 +90,14 @@ fn flatten(
         }
     };
     match v {
-        Value::Tensor(t) => out.push((prefix.to_string(), (**t).clone())),
+        Value::Tensor(t) => {
+            if out.len() >= MAX_TENSORS {
+                return Err(format!(
+                    "the pickled object lists more than {MAX_TENSORS} tensors"
+                ));
+            }
+            out.push((prefix.to_string(), (**t).clone()))
+        }
         Value::Dict(d) if depth < MAX_NESTING => {
             for (k, v) in d.borrow().iter() {
                 let key = match k {
@@ -300,6 +310,26 @@ mod tests {
         assert!(is_c_contiguous(&[4, 3], &[3, 1]));
         assert!(is_c_contiguous(&[1, 3], &[7, 1]));
         assert!(!is_c_contiguous(&[4, 3], &[1, 4]));
+    }
+
+    #[test]
+    fn a_list_referenced_many_times_stops_at_the_visit_limit() {
+        // L = [t] * 1000 built from memo references, then [L] * 1000 * 1000 by the same
+        // trick: 10^9 paths from a pickle of a few kilobytes.
+        let t = Value::Tensor(std::rc::Rc::new(TensorRef {
+            key: "0".into(),
+            storage_type: "FloatStorage".into(),
+            storage_numel: 1,
+            offset: 0,
+            size: vec![1],
+            stride: vec![1],
+        }));
+        let l = |v: Value| Value::List(std::rc::Rc::new(std::cell::RefCell::new(vec![v; 1000])));
+        let root = l(l(l(t)));
+        let mut out = Vec::new();
+        let e = flatten(&root, "", 0, &mut 0, &mut out).unwrap_err();
+        assert!(e.contains("more than"), "{e}");
+        assert!(out.len() <= MAX_TENSORS);
     }
 
     #[test]
