@@ -10,7 +10,12 @@
 //! add a [`Format`] variant, and route to it in [`Checkpoint::open`] / [`sniff`]. Nothing
 //! in the analyses or the report changes.
 
+mod archive;
 pub mod dtype;
+pub mod gguf;
+pub mod numpy;
+pub mod pickle;
+pub mod pytorch;
 pub mod safetensors;
 
 use std::borrow::Cow;
@@ -113,6 +118,9 @@ pub enum Storage {
     ZipMember {
         /// The member's name inside the archive.
         member: String,
+        /// Bytes at the start of the inflated member that precede the storage (the
+        /// header of an `.npy` member of an `.npz`; 0 for torch storages).
+        skip: usize,
     },
 }
 
@@ -265,6 +273,11 @@ pub fn sniff(path: &Path, bytes: &[u8]) -> Option<Format> {
     if bytes.starts_with(b"\x93NUMPY") {
         return Some(Format::Numpy);
     }
+    // A pickle at the start of the file: the pre-1.6 torch.save format, which the
+    // PyTorch module recognises and explains.
+    if bytes.starts_with(b"\x80\x02\x8a\x0a") {
+        return Some(Format::Pytorch);
+    }
     let ext = path
         .extension()
         .map(|e| e.to_string_lossy().to_ascii_lowercase())
@@ -374,7 +387,20 @@ impl Checkpoint {
                         )
                     })
             }
-            Storage::ZipMember { member } => read_zip_member(file, member).map(Cow::Owned),
+            Storage::ZipMember { member, skip } => {
+                let mut bytes = read_zip_member(file, member)?;
+                if *skip > bytes.len() {
+                    return Err(CheckpointError::invalid(
+                        &file.path,
+                        format!(
+                            "zip member `{member}` holds {} bytes, fewer than its {skip}-byte header",
+                            bytes.len()
+                        ),
+                    ));
+                }
+                bytes.drain(..*skip);
+                Ok(Cow::Owned(bytes))
+            }
         }
     }
 
@@ -562,10 +588,9 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
     }
     match sniff(path, file.bytes()) {
         Some(Format::Safetensors) => safetensors::open_files(vec![file]),
-        Some(other) => Err(CheckpointError::NotACheckpoint {
-            path: path.to_path_buf(),
-            problem: format!("{other} checkpoints are not supported yet"),
-        }),
+        Some(Format::Pytorch) => pytorch::open_files(vec![file]),
+        Some(Format::Numpy) => numpy::open(path, file),
+        Some(Format::Gguf) => gguf::open(file),
         None => {
             // An unknown extension: try safetensors' header as the last resort, since it
             // has no magic number.
@@ -609,6 +634,60 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
             .map(|p| SourceFile::open(p))
             .collect::<Result<Vec<_>, _>>()?;
         return safetensors::open_files(files);
+    }
+    // PyTorch: an index of shards, the conventional single file, or any one torch file.
+    let bin_index = has(".bin.index.json");
+    if let Some(index) = bin_index.first() {
+        return pytorch::open_sharded(index);
+    }
+    let single = dir.join("pytorch_model.bin");
+    if single.is_file() {
+        return open_file(&single);
+    }
+    // Otherwise exactly one file of another format; several are ambiguous.
+    let others: Vec<&PathBuf> = names
+        .iter()
+        .filter(|p| {
+            let ext = p
+                .extension()
+                .map(|e| e.to_string_lossy().to_ascii_lowercase())
+                .unwrap_or_default();
+            matches!(
+                ext.as_str(),
+                "bin" | "pt" | "pth" | "ckpt" | "npy" | "npz" | "gguf"
+            )
+        })
+        .collect();
+    // torch shards without their index (`pytorch_model-00001-of-00002.bin`, ...).
+    let unindexed_shards = others.len() > 1
+        && others.iter().all(|p| {
+            let name = p.file_name().unwrap_or_default().to_string_lossy();
+            name.ends_with(".bin") && name.contains("-of-")
+        });
+    if unindexed_shards {
+        let files = others
+            .iter()
+            .map(|p| SourceFile::open(p))
+            .collect::<Result<Vec<_>, _>>()?;
+        return pytorch::open_files(files);
+    }
+    match others.as_slice() {
+        [one] => return open_file(one),
+        [] => {}
+        many => {
+            return Err(CheckpointError::NotACheckpoint {
+                path: dir.to_path_buf(),
+                problem: format!(
+                    "folder holds {} candidate checkpoint files ({}) and no index: name one file",
+                    many.len(),
+                    many.iter()
+                        .filter_map(|p| p.file_name())
+                        .map(|n| n.to_string_lossy().into_owned())
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ),
+            });
+        }
     }
     Err(CheckpointError::NotACheckpoint {
         path: dir.to_path_buf(),

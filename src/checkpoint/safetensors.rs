@@ -145,6 +145,16 @@ fn check_duplicate_names(files: &[SourceFile], tensors: &[TensorInfo], warnings:
 
 /// Opens a sharded checkpoint from its `*.safetensors.index.json`.
 pub fn open_sharded(index_path: &Path) -> Result<Opened, CheckpointError> {
+    open_sharded_with(index_path, open_files)
+}
+
+/// Opens the shards an index's `weight_map` names with `open_files` (the format's own
+/// loader) and checks the map against what the shards hold. Shared with the PyTorch
+/// format, whose `pytorch_model.bin.index.json` has the same layout.
+pub(crate) fn open_sharded_with(
+    index_path: &Path,
+    open_files: fn(Vec<SourceFile>) -> Result<Opened, CheckpointError>,
+) -> Result<Opened, CheckpointError> {
     let text =
         std::fs::read_to_string(index_path).map_err(|e| CheckpointError::io(index_path, e))?;
     let json: serde_json::Value = serde_json::from_str(&text).map_err(|e| {

@@ -1,0 +1,814 @@
+//! A restricted pickle reader for `torch.save` archives: it never executes anything.
+//!
+//! A pickle is a program for a stack machine, and `pickle.load` runs it: `GLOBAL` imports
+//! any callable and `REDUCE` calls it. Opening an untrusted checkpoint with Python can
+//! therefore run arbitrary code. posaudit must be safe to point at any file, so this module
+//! interprets the opcodes symbolically:
+//!
+//! - only the opcodes `torch.save` emits are understood (protocol 2, which torch uses by
+//!   default, plus the protocol-4 framing, memo and `STACK_GLOBAL` opcodes); any other
+//!   opcode is an error;
+//! - `GLOBAL` is checked against an allow-list of names whose meaning we reimplement as
+//!   data (`torch._utils._rebuild_tensor_v2` builds a [`TensorRef`] record, `torch.*Storage`
+//!   names an element type, `collections.OrderedDict` makes a dict). Any other name, such as
+//!   `os.system` or `builtins.eval`, stops the reading with an error naming it;
+//! - hard limits bound the work and memory a crafted file can cause: pickle size, number of
+//!   operations, memo entries, stack and container nesting depth. Containers are shared
+//!   through reference counting, so a memo reference never copies data.
+//!
+//! Decision (see dependencies.md): `serde-pickle` cannot read torch files (no persistent
+//! ids), and `repugnant-pickle` is unmaintained and copies memo entries on each reference.
+//! Since refusing to execute pickled code is the promise of this tool, the reader is ours:
+//! about 500 lines we can audit, limited to what `torch.save` writes.
+
+use std::cell::RefCell;
+use std::collections::HashMap;
+use std::rc::Rc;
+
+/// Largest `data.pkl` we accept. A state dict's pickle is a few bytes per tensor plus its
+/// names; 256 MiB allows millions of tensors.
+pub const MAX_PICKLE_BYTES: usize = 256 << 20;
+/// Most opcodes executed.
+pub const MAX_OPS: usize = 50_000_000;
+/// Most memo entries.
+pub const MAX_MEMO: usize = 10_000_000;
+/// Deepest stack, and deepest container nesting when flattening.
+pub const MAX_DEPTH: usize = 1_000;
+/// Longest string or bytes object.
+pub const MAX_STRING: usize = 64 << 20;
+
+/// A tensor as `torch._utils._rebuild_tensor_v2` describes it, without its data.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TensorRef {
+    /// The storage's key: the archive member is `<archive>/data/<key>`.
+    pub key: String,
+    /// The storage class name, e.g. `FloatStorage`.
+    pub storage_type: String,
+    /// Elements in the storage, as the persistent id declares.
+    pub storage_numel: u64,
+    /// Element offset of the tensor in its storage.
+    pub offset: u64,
+    /// Shape.
+    pub size: Vec<u64>,
+    /// Element strides.
+    pub stride: Vec<u64>,
+}
+
+/// A value on the pickle machine's stack.
+#[derive(Debug, Clone)]
+pub enum Value {
+    /// `None`.
+    None,
+    /// `True` / `False`.
+    Bool(bool),
+    /// An integer that fits 64 bits.
+    Int(i64),
+    /// An integer too large for 64 bits (kept opaque).
+    BigInt,
+    /// A float.
+    Float(f64),
+    /// A text string.
+    Str(Rc<str>),
+    /// A bytes object.
+    Bytes(Rc<[u8]>),
+    /// A tuple.
+    Tuple(Rc<Vec<Value>>),
+    /// A list (shared: memo references see later appends).
+    List(Rc<RefCell<Vec<Value>>>),
+    /// A dict in insertion order (shared: memo references see later items).
+    Dict(Rc<RefCell<Vec<(Value, Value)>>>),
+    /// An allowed global, by its dotted name.
+    Global(Rc<str>),
+    /// A storage named by a persistent id.
+    Storage {
+        /// Storage class name.
+        storage_type: Rc<str>,
+        /// Key of the archive member.
+        key: Rc<str>,
+        /// Declared element count.
+        numel: u64,
+    },
+    /// A rebuilt tensor.
+    Tensor(Rc<TensorRef>),
+    /// A harmless object we do not model (a `torch.device`, a dtype).
+    Opaque(Rc<str>),
+    /// The stack mark.
+    Mark,
+}
+
+/// Dropping a deeply nested value must not recurse once per level (a crafted pickle can
+/// nest millions of tuples with a few bytes each): children are moved to a work list.
+impl Drop for Value {
+    fn drop(&mut self) {
+        let mut work = Vec::new();
+        take_children(self, &mut work);
+        while let Some(mut v) = work.pop() {
+            take_children(&mut v, &mut work);
+        }
+    }
+}
+
+/// Moves the children of a container out when this is its last reference.
+fn take_children(v: &mut Value, out: &mut Vec<Value>) {
+    match v {
+        Value::Tuple(rc) => {
+            if let Some(items) = Rc::get_mut(rc) {
+                out.append(items);
+            }
+        }
+        Value::List(rc) => {
+            if let Some(items) = Rc::get_mut(rc) {
+                out.append(items.get_mut());
+            }
+        }
+        Value::Dict(rc) => {
+            if let Some(items) = Rc::get_mut(rc) {
+                for (k, v) in items.get_mut().drain(..) {
+                    out.push(k);
+                    out.push(v);
+                }
+            }
+        }
+        _ => {}
+    }
+}
+
+impl Value {
+    fn kind(&self) -> &'static str {
+        match self {
+            Value::None => "None",
+            Value::Bool(_) => "bool",
+            Value::Int(_) | Value::BigInt => "int",
+            Value::Float(_) => "float",
+            Value::Str(_) => "str",
+            Value::Bytes(_) => "bytes",
+            Value::Tuple(_) => "tuple",
+            Value::List(_) => "list",
+            Value::Dict(_) => "dict",
+            Value::Global(_) => "global",
+            Value::Storage { .. } => "storage",
+            Value::Tensor(_) => "tensor",
+            Value::Opaque(_) => "object",
+            Value::Mark => "mark",
+        }
+    }
+}
+
+/// Globals whose meaning we reimplement as data. Everything else is refused.
+fn allowed_global(module: &str, name: &str) -> bool {
+    match module {
+        "torch._utils" => matches!(
+            name,
+            "_rebuild_tensor_v2"
+                | "_rebuild_tensor"
+                | "_rebuild_parameter"
+                | "_rebuild_parameter_with_state"
+        ),
+        "collections" => name == "OrderedDict",
+        "torch" => {
+            name.ends_with("Storage")
+                && name.len() > "Storage".len()
+                && name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')
+                || name == "device"
+                || is_torch_dtype(name)
+        }
+        _ => false,
+    }
+}
+
+fn is_torch_dtype(name: &str) -> bool {
+    matches!(
+        name,
+        "float64"
+            | "float32"
+            | "float16"
+            | "bfloat16"
+            | "int64"
+            | "int32"
+            | "int16"
+            | "int8"
+            | "uint8"
+            | "bool"
+    )
+}
+
+/// Reads a `data.pkl` and returns the unpickled value (tensors as [`TensorRef`]s).
+///
+/// Errors are one lower-case line: the problem and the byte position.
+pub fn load(bytes: &[u8]) -> Result<Value, String> {
+    if bytes.len() > MAX_PICKLE_BYTES {
+        return Err(format!(
+            "data.pkl is {} bytes, more than the {} MiB limit",
+            bytes.len(),
+            MAX_PICKLE_BYTES >> 20
+        ));
+    }
+    Machine {
+        bytes,
+        pos: 0,
+        stack: Vec::new(),
+        marks: Vec::new(),
+        memo: HashMap::new(),
+    }
+    .run()
+}
+
+struct Machine<'a> {
+    bytes: &'a [u8],
+    pos: usize,
+    stack: Vec<Value>,
+    marks: Vec<usize>,
+    memo: HashMap<u64, Value>,
+}
+
+impl<'a> Machine<'a> {
+    fn take(&mut self, n: usize) -> Result<&'a [u8], String> {
+        let end = self
+            .pos
+            .checked_add(n)
+            .filter(|&e| e <= self.bytes.len())
+            .ok_or_else(|| {
+                format!(
+                    "pickle ends early: {n} bytes wanted at byte {} of {}",
+                    self.pos,
+                    self.bytes.len()
+                )
+            })?;
+        let s = &self.bytes[self.pos..end];
+        self.pos = end;
+        Ok(s)
+    }
+
+    fn u8(&mut self) -> Result<u8, String> {
+        Ok(self.take(1)?[0])
+    }
+
+    fn u16(&mut self) -> Result<u16, String> {
+        let b = self.take(2)?;
+        Ok(u16::from_le_bytes([b[0], b[1]]))
+    }
+
+    fn u32(&mut self) -> Result<u32, String> {
+        let b = self.take(4)?;
+        Ok(u32::from_le_bytes([b[0], b[1], b[2], b[3]]))
+    }
+
+    fn u64(&mut self) -> Result<u64, String> {
+        let b = self.take(8)?;
+        let mut a = [0u8; 8];
+        a.copy_from_slice(b);
+        Ok(u64::from_le_bytes(a))
+    }
+
+    fn line(&mut self) -> Result<&'a str, String> {
+        let rest = &self.bytes[self.pos..];
+        let n = rest
+            .iter()
+            .take(4096)
+            .position(|&b| b == b'\n')
+            .ok_or_else(|| format!("unterminated text argument at byte {}", self.pos))?;
+        let s = std::str::from_utf8(&rest[..n])
+            .map_err(|_| format!("text argument at byte {} is not UTF-8", self.pos))?;
+        self.pos += n + 1;
+        Ok(s)
+    }
+
+    fn sized(&mut self, n: u64) -> Result<&'a [u8], String> {
+        let n = usize::try_from(n)
+            .ok()
+            .filter(|&n| n <= MAX_STRING)
+            .ok_or_else(|| {
+                format!(
+                    "string of {n} bytes at byte {} exceeds the {} MiB limit",
+                    self.pos,
+                    MAX_STRING >> 20
+                )
+            })?;
+        self.take(n)
+    }
+
+    fn text(&mut self, n: u64) -> Result<Value, String> {
+        let at = self.pos;
+        let b = self.sized(n)?;
+        let s = std::str::from_utf8(b).map_err(|_| format!("string at byte {at} is not UTF-8"))?;
+        Ok(Value::Str(Rc::from(s)))
+    }
+
+    fn push(&mut self, v: Value) -> Result<(), String> {
+        if self.stack.len() >= MAX_DEPTH * 1000 {
+            return Err(format!("pickle stack exceeds {} entries", MAX_DEPTH * 1000));
+        }
+        self.stack.push(v);
+        Ok(())
+    }
+
+    fn pop(&mut self) -> Result<Value, String> {
+        let floor = self.marks.last().copied().unwrap_or(0);
+        if self.stack.len() <= floor {
+            return Err(format!("stack underflow at byte {}", self.pos));
+        }
+        self.stack
+            .pop()
+            .ok_or_else(|| format!("stack underflow at byte {}", self.pos))
+    }
+
+    fn top(&mut self) -> Result<&mut Value, String> {
+        let pos = self.pos;
+        let floor = self.marks.last().copied().unwrap_or(0);
+        if self.stack.len() <= floor {
+            return Err(format!("stack underflow at byte {pos}"));
+        }
+        self.stack
+            .last_mut()
+            .ok_or_else(|| format!("stack underflow at byte {pos}"))
+    }
+
+    fn pop_mark(&mut self) -> Result<Vec<Value>, String> {
+        let m = self
+            .marks
+            .pop()
+            .ok_or_else(|| format!("no mark on the stack at byte {}", self.pos))?;
+        if m > self.stack.len() {
+            return Err(format!("corrupt mark at byte {}", self.pos));
+        }
+        Ok(self.stack.split_off(m))
+    }
+
+    fn memo_put(&mut self, idx: u64) -> Result<(), String> {
+        let v = self.top()?.clone();
+        if self.memo.len() >= MAX_MEMO && !self.memo.contains_key(&idx) {
+            return Err(format!("pickle memo exceeds {MAX_MEMO} entries"));
+        }
+        self.memo.insert(idx, v);
+        Ok(())
+    }
+
+    fn memo_get(&mut self, idx: u64) -> Result<(), String> {
+        let v = self
+            .memo
+            .get(&idx)
+            .cloned()
+            .ok_or_else(|| format!("memo entry {idx} read before it was written"))?;
+        self.push(v)
+    }
+
+    fn global(&mut self, module: &str, name: &str) -> Result<(), String> {
+        if !allowed_global(module, name) {
+            return Err(format!(
+                "refuses global `{module}.{name}` (posaudit never executes pickled code)"
+            ));
+        }
+        self.push(Value::Global(Rc::from(format!("{module}.{name}"))))
+    }
+
+    fn run(mut self) -> Result<Value, String> {
+        let mut ops = 0usize;
+        loop {
+            ops += 1;
+            if ops > MAX_OPS {
+                return Err(format!("pickle runs more than {MAX_OPS} operations"));
+            }
+            let at = self.pos;
+            let op = self.u8()?;
+            match op {
+                // PROTO
+                0x80 => {
+                    let v = self.u8()?;
+                    if v > 5 {
+                        return Err(format!("pickle protocol {v} is not supported"));
+                    }
+                }
+                // FRAME: a length prefix only; the content follows inline.
+                0x95 => {
+                    self.u64()?;
+                }
+                // STOP
+                b'.' => {
+                    let v = self.pop()?;
+                    return Ok(v);
+                }
+                b'(' => {
+                    if self.marks.len() >= MAX_DEPTH {
+                        return Err(format!("more than {MAX_DEPTH} nested marks"));
+                    }
+                    self.marks.push(self.stack.len());
+                }
+                b'}' => self.push(Value::Dict(Rc::default()))?,
+                b']' => self.push(Value::List(Rc::default()))?,
+                b')' => self.push(Value::Tuple(Rc::default()))?,
+                b't' => {
+                    let items = self.pop_mark()?;
+                    self.push(Value::Tuple(Rc::new(items)))?;
+                }
+                0x85 => {
+                    let a = self.pop()?;
+                    self.push(Value::Tuple(Rc::new(vec![a])))?;
+                }
+                0x86 => {
+                    let b = self.pop()?;
+                    let a = self.pop()?;
+                    self.push(Value::Tuple(Rc::new(vec![a, b])))?;
+                }
+                0x87 => {
+                    let c = self.pop()?;
+                    let b = self.pop()?;
+                    let a = self.pop()?;
+                    self.push(Value::Tuple(Rc::new(vec![a, b, c])))?;
+                }
+                b'l' => {
+                    let items = self.pop_mark()?;
+                    self.push(Value::List(Rc::new(RefCell::new(items))))?;
+                }
+                b'd' => {
+                    let items = self.pop_mark()?;
+                    let dict = pairs(items, at)?;
+                    self.push(Value::Dict(Rc::new(RefCell::new(dict))))?;
+                }
+                // BINPUT, LONG_BINPUT, MEMOIZE
+                b'q' => {
+                    let i = self.u8()? as u64;
+                    self.memo_put(i)?;
+                }
+                b'r' => {
+                    let i = self.u32()? as u64;
+                    self.memo_put(i)?;
+                }
+                0x94 => {
+                    let i = self.memo.len() as u64;
+                    self.memo_put(i)?;
+                }
+                // BINGET, LONG_BINGET
+                b'h' => {
+                    let i = self.u8()? as u64;
+                    self.memo_get(i)?;
+                }
+                b'j' => {
+                    let i = self.u32()? as u64;
+                    self.memo_get(i)?;
+                }
+                // SETITEM, SETITEMS
+                b's' => {
+                    let v = self.pop()?;
+                    let k = self.pop()?;
+                    dict_extend(self.top()?, vec![(k, v)], at)?;
+                }
+                b'u' => {
+                    let items = self.pop_mark()?;
+                    let items = pairs(items, at)?;
+                    dict_extend(self.top()?, items, at)?;
+                }
+                // APPEND, APPENDS
+                b'a' => {
+                    let v = self.pop()?;
+                    list_extend(self.top()?, vec![v], at)?;
+                }
+                b'e' => {
+                    let items = self.pop_mark()?;
+                    list_extend(self.top()?, items, at)?;
+                }
+                // GLOBAL (two text lines), STACK_GLOBAL (two strings on the stack)
+                b'c' => {
+                    let module = self.line()?;
+                    let name = self.line()?;
+                    self.global(module, name)?;
+                }
+                0x93 => {
+                    let name = self.pop()?;
+                    let module = self.pop()?;
+                    match (&module, &name) {
+                        (Value::Str(m), Value::Str(n)) => self.global(m, n)?,
+                        _ => return Err(format!("STACK_GLOBAL at byte {at} needs two strings")),
+                    }
+                }
+                // Strings and bytes.
+                b'X' => {
+                    let n = self.u32()? as u64;
+                    let v = self.text(n)?;
+                    self.push(v)?;
+                }
+                0x8c => {
+                    let n = self.u8()? as u64;
+                    let v = self.text(n)?;
+                    self.push(v)?;
+                }
+                0x8d => {
+                    let n = self.u64()?;
+                    let v = self.text(n)?;
+                    self.push(v)?;
+                }
+                b'T' | b'B' => {
+                    let n = self.u32()? as u64;
+                    let b = self.sized(n)?;
+                    self.push(bytes_value(op, b))?;
+                }
+                b'U' | b'C' => {
+                    let n = self.u8()? as u64;
+                    let b = self.sized(n)?;
+                    self.push(bytes_value(op, b))?;
+                }
+                0x8e => {
+                    let n = self.u64()?;
+                    let b = self.sized(n)?;
+                    self.push(Value::Bytes(Rc::from(b)))?;
+                }
+                // Numbers and constants.
+                b'J' => {
+                    let v = self.u32()? as i32;
+                    self.push(Value::Int(v as i64))?;
+                }
+                b'K' => {
+                    let v = self.u8()?;
+                    self.push(Value::Int(v as i64))?;
+                }
+                b'M' => {
+                    let v = self.u16()?;
+                    self.push(Value::Int(v as i64))?;
+                }
+                0x8a => {
+                    let n = self.u8()? as u64;
+                    let b = self.sized(n)?;
+                    self.push(long_value(b))?;
+                }
+                0x8b => {
+                    let n = self.u32()? as u64;
+                    let b = self.sized(n)?;
+                    self.push(long_value(b))?;
+                }
+                b'G' => {
+                    // BINFLOAT is big-endian.
+                    let b = self.take(8)?;
+                    let mut a = [0u8; 8];
+                    a.copy_from_slice(b);
+                    self.push(Value::Float(f64::from_be_bytes(a)))?;
+                }
+                b'N' => self.push(Value::None)?,
+                0x88 => self.push(Value::Bool(true))?,
+                0x89 => self.push(Value::Bool(false))?,
+                // Stack manipulation.
+                b'0' => {
+                    self.pop()?;
+                }
+                b'1' => {
+                    self.pop_mark()?;
+                }
+                b'2' => {
+                    let v = self.top()?.clone();
+                    self.push(v)?;
+                }
+                // BINPERSID: the persistent id of a storage.
+                b'Q' => {
+                    let pid = self.pop()?;
+                    let v = persistent_storage(&pid, at)?;
+                    self.push(v)?;
+                }
+                // REDUCE, NEWOBJ: call an allowed global with a tuple of arguments.
+                b'R' | 0x81 => {
+                    let args = self.pop()?;
+                    let func = self.pop()?;
+                    let v = reduce(&func, &args, at)?;
+                    self.push(v)?;
+                }
+                // BUILD: object state (e.g. an OrderedDict's `_metadata`); we keep the
+                // object as it is and never set attributes.
+                b'b' => {
+                    self.pop()?;
+                    self.top()?;
+                }
+                other => {
+                    return Err(format!(
+                        "unsupported pickle opcode 0x{other:02x} at byte {at} (not something torch.save writes)"
+                    ));
+                }
+            }
+        }
+    }
+}
+
+fn bytes_value(op: u8, b: &[u8]) -> Value {
+    // BINSTRING / SHORT_BINSTRING are Python 2 `str`: treat as text when it decodes.
+    if matches!(op, b'T' | b'U')
+        && let Ok(s) = std::str::from_utf8(b)
+    {
+        return Value::Str(Rc::from(s));
+    }
+    Value::Bytes(Rc::from(b))
+}
+
+/// Decodes a little-endian two's-complement integer of any length (LONG1 / LONG4).
+fn long_value(b: &[u8]) -> Value {
+    let Some(&last) = b.last() else {
+        return Value::Int(0);
+    };
+    let fill = if last & 0x80 != 0 { 0xff } else { 0 };
+    if b.len() > 8 && (b[8..].iter().any(|&x| x != fill) || (b[7] & 0x80) != (fill & 0x80)) {
+        return Value::BigInt;
+    }
+    let k = b.len().min(8);
+    let mut a = [fill; 8];
+    a[..k].copy_from_slice(&b[..k]);
+    Value::Int(i64::from_le_bytes(a))
+}
+
+fn pairs(items: Vec<Value>, at: usize) -> Result<Vec<(Value, Value)>, String> {
+    if !items.len().is_multiple_of(2) {
+        return Err(format!("odd number of dict items at byte {at}"));
+    }
+    let mut out = Vec::with_capacity(items.len() / 2);
+    let mut it = items.into_iter();
+    while let (Some(k), Some(v)) = (it.next(), it.next()) {
+        out.push((k, v));
+    }
+    Ok(out)
+}
+
+fn dict_extend(target: &mut Value, items: Vec<(Value, Value)>, at: usize) -> Result<(), String> {
+    match target {
+        Value::Dict(d) => {
+            d.borrow_mut().extend(items);
+            Ok(())
+        }
+        other => Err(format!("dict items set on a {} at byte {at}", other.kind())),
+    }
+}
+
+fn list_extend(target: &mut Value, items: Vec<Value>, at: usize) -> Result<(), String> {
+    match target {
+        Value::List(l) => {
+            l.borrow_mut().extend(items);
+            Ok(())
+        }
+        other => Err(format!(
+            "list items appended to a {} at byte {at}",
+            other.kind()
+        )),
+    }
+}
+
+fn as_u64(v: &Value) -> Option<u64> {
+    match v {
+        Value::Int(i) => u64::try_from(*i).ok(),
+        _ => None,
+    }
+}
+
+fn u64_tuple(v: &Value) -> Option<Vec<u64>> {
+    match v {
+        Value::Tuple(t) => t.iter().map(as_u64).collect(),
+        Value::List(l) => l.borrow().iter().map(as_u64).collect(),
+        _ => None,
+    }
+}
+
+/// `('storage', torch.FloatStorage, key, location, numel)` → a storage value.
+fn persistent_storage(pid: &Value, at: usize) -> Result<Value, String> {
+    let bad = || format!("persistent id at byte {at} is not a torch storage reference");
+    let Value::Tuple(t) = pid else {
+        return Err(bad());
+    };
+    match t.as_slice() {
+        [Value::Str(tag), Value::Global(class), key, _location, numel] if &**tag == "storage" => {
+            let key: Rc<str> = match key {
+                Value::Str(s) => s.clone(),
+                Value::Int(i) => Rc::from(i.to_string()),
+                _ => return Err(bad()),
+            };
+            let storage_type = class
+                .strip_prefix("torch.")
+                .filter(|n| n.ends_with("Storage"))
+                .ok_or_else(bad)?;
+            Ok(Value::Storage {
+                storage_type: Rc::from(storage_type),
+                key,
+                numel: as_u64(numel).ok_or_else(bad)?,
+            })
+        }
+        _ => Err(bad()),
+    }
+}
+
+/// Applies an allowed global to its arguments, as data.
+fn reduce(func: &Value, args: &Value, at: usize) -> Result<Value, String> {
+    let Value::Global(name) = func else {
+        return Err(format!(
+            "call of a {} at byte {at} (only allowed globals can be called)",
+            func.kind()
+        ));
+    };
+    let empty = Vec::new();
+    let args_vec: &Vec<Value> = match args {
+        Value::Tuple(t) => t,
+        _ => &empty,
+    };
+    match &**name {
+        "torch._utils._rebuild_tensor_v2" | "torch._utils._rebuild_tensor" => {
+            let bad = |what: &str| format!("{name} at byte {at}: {what}");
+            let [storage, offset, size, stride, ..] = args_vec.as_slice() else {
+                return Err(bad("expects (storage, offset, size, stride, ...)"));
+            };
+            let Value::Storage {
+                storage_type,
+                key,
+                numel,
+            } = storage
+            else {
+                return Err(bad("first argument is not a storage"));
+            };
+            let size = u64_tuple(size).ok_or_else(|| bad("size is not a tuple of integers"))?;
+            let stride =
+                u64_tuple(stride).ok_or_else(|| bad("stride is not a tuple of integers"))?;
+            if size.len() != stride.len() {
+                return Err(bad("size and stride differ in length"));
+            }
+            Ok(Value::Tensor(Rc::new(TensorRef {
+                key: key.to_string(),
+                storage_type: storage_type.to_string(),
+                storage_numel: *numel,
+                offset: as_u64(offset).ok_or_else(|| bad("offset is not an integer"))?,
+                size,
+                stride,
+            })))
+        }
+        "torch._utils._rebuild_parameter" | "torch._utils._rebuild_parameter_with_state" => {
+            match args_vec.first() {
+                Some(t @ Value::Tensor(_)) => Ok(t.clone()),
+                _ => Err(format!(
+                    "{name} at byte {at}: first argument is not a tensor"
+                )),
+            }
+        }
+        "collections.OrderedDict" => {
+            // OrderedDict() or OrderedDict([(k, v), ...]).
+            let mut items = Vec::new();
+            if let Some(Value::List(l)) = args_vec.first() {
+                for item in l.borrow().iter() {
+                    match item {
+                        Value::Tuple(kv) if kv.len() == 2 => {
+                            items.push((kv[0].clone(), kv[1].clone()))
+                        }
+                        _ => return Err(format!("{name} at byte {at}: items are not pairs")),
+                    }
+                }
+            }
+            Ok(Value::Dict(Rc::new(RefCell::new(items))))
+        }
+        other => Ok(Value::Opaque(Rc::from(other))),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn refuses_a_global_outside_the_allow_list() {
+        // Protocol 2: GLOBAL 'os\nsystem\n', a one-string tuple, REDUCE, STOP.
+        let p = b"\x80\x02cos\nsystem\nq\x00X\x05\x00\x00\x00echo!q\x01\x85q\x02Rq\x03.";
+        let err = load(p).unwrap_err();
+        assert!(err.contains("refuses global `os.system`"), "{err}");
+    }
+
+    #[test]
+    fn refuses_stack_global_eval() {
+        let p = b"\x80\x04\x8c\x08builtins\x94\x8c\x04eval\x94\x93\x94.";
+        let err = load(p).unwrap_err();
+        assert!(err.contains("`builtins.eval`"), "{err}");
+    }
+
+    #[test]
+    fn reads_a_dict_with_a_memoized_value() {
+        // {'a': 1, 'b': [1]} written by hand in protocol 2 (opcode table: pickletools docs).
+        let p = b"\x80\x02}q\x00(X\x01\x00\x00\x00aK\x01X\x01\x00\x00\x00b]q\x01K\x01au.";
+        let v = load(p).unwrap();
+        let Value::Dict(d) = &v else {
+            panic!("not a dict")
+        };
+        let d = d.borrow();
+        assert_eq!(d.len(), 2);
+        assert!(matches!(d[0].1, Value::Int(1)));
+        assert!(matches!(&d[1].1, Value::List(l) if l.borrow().len() == 1));
+    }
+
+    #[test]
+    fn long_integers_decode_two_complement() {
+        assert!(matches!(long_value(&[0xff]), Value::Int(-1)));
+        assert!(matches!(long_value(&[0x00, 0x01]), Value::Int(256)));
+        assert!(matches!(long_value(&[0; 12]), Value::Int(0)));
+        assert!(matches!(long_value(&[1; 12]), Value::BigInt));
+    }
+
+    #[test]
+    fn deep_nesting_drops_without_recursion() {
+        // 1.2 million TUPLE1 opcodes wrap an empty tuple 1.2 million levels deep.
+        let mut p = b"\x80\x02)".to_vec();
+        p.extend(std::iter::repeat_n(0x85u8, 1_200_000));
+        p.push(b'.');
+        let v = load(&p).unwrap();
+        drop(v);
+    }
+
+    #[test]
+    fn truncated_pickle_is_an_error() {
+        assert!(load(b"\x80\x02}q").is_err());
+        assert!(load(b"").is_err());
+    }
+}

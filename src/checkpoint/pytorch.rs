@@ -1,0 +1,341 @@
+//! PyTorch checkpoints written by `torch.save` (torch >= 1.6): `.bin`, `.pt`, `.pth`,
+//! `.ckpt`, single files or shards with a `pytorch_model.bin.index.json`.
+//!
+//! Such a file is a zip archive: `<archive>/data.pkl` is a pickle of the saved object
+//! whose tensors refer, through persistent ids, to storages kept as raw little-endian
+//! bytes in `<archive>/data/<key>`. The pickle is read by [`super::pickle`], which never
+//! executes anything and refuses any global outside a short allow-list. torch stores the
+//! storage members uncompressed, so tensor bytes are read from the memory map; a member
+//! that some other tool re-compressed is inflated when read.
+//!
+//! Nested objects (`{"model": {...}, "optimizer": {...}}`, a Lightning `state_dict`)
+//! are flattened to dotted names; values other than tensors are ignored. The pre-1.6
+//! format (a bare pickle starting with torch's magic number) is refused with a clear
+//! message.
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use super::archive::{self, Member};
+use super::pickle::{self, TensorRef, Value};
+use super::{CheckpointError, Dtype, Format, Opened, SourceFile, TensorInfo};
+
+/// The pickle that starts a pre-1.6 `torch.save` file: protocol 2, then the magic number
+/// 0x1950a86a20f9469cfc6c as a 10-byte LONG1 (torch/serialization.py, `MAGIC_NUMBER`).
+const LEGACY_MAGIC: &[u8] = b"\x80\x02\x8a\x0a\x6c\xfc\x9c\x46\xf9\x20\x6a\xa8\x50\x19";
+
+/// Most containers and values visited while flattening (a crafted pickle can refer to
+/// one list many times, so the visits, not the pickle size, bound the work).
+const MAX_VISITS: usize = 5_000_000;
+/// Most tensors one checkpoint file may list.
+const MAX_TENSORS: usize = 1_000_000;
+/// Deepest container nesting followed when flattening names.
+const MAX_NESTING: usize = 64;
+
+fn dtype_of(storage_type: &str) -> Dtype {
+    match storage_type {
+        "DoubleStorage" => Dtype::F64,
+        "FloatStorage" => Dtype::F32,
+        "HalfStorage" => Dtype::F16,
+        "BFloat16Storage" => Dtype::BF16,
+        "LongStorage" => Dtype::I64,
+        "IntStorage" => Dtype::I32,
+        "ShortStorage" => Dtype::I16,
+        "CharStorage" => Dtype::I8,
+        "ByteStorage" => Dtype::U8,
+        "BoolStorage" => Dtype::Bool,
+        other => Dtype::Other {
+            name: other.to_string(),
+        },
+    }
+}
+
+/// C-contiguous strides of a shape.
+fn c_strides(shape: &[usize]) -> Vec<usize> {
+    let mut s = vec![1usize; shape.len()];
+    for i in (0..shape.len().saturating_sub(1)).rev() {
+        s[i] = s[i + 1].saturating_mul(shape[i + 1]);
+    }
+    s
+}
+
+/// True when `strides` address the shape in C order (size-1 dimensions may have any stride).
+fn is_c_contiguous(shape: &[usize], strides: &[usize]) -> bool {
+    let c = c_strides(shape);
+    shape
+        .iter()
+        .zip(strides.iter().zip(&c))
+        .all(|(&d, (&s, &cs))| d <= 1 || s == cs)
+}
+
+/// Flattens nested containers to `(dotted name, tensor)` pairs.
+fn flatten(
+    v: &Value,
+    prefix: &str,
+    depth: usize,
+    visits: &mut usize,
+    out: &mut Vec<(String, TensorRef)>,
+) -> Result<(), String> {
+    *visits += 1;
+    if *visits > MAX_VISITS {
+        return Err(format!(
+            "the pickled object has more than {MAX_VISITS} entries (or refers to itself)"
+        ));
+    }
+    let join = |k: &str| {
+        if prefix.is_empty() {
+            k.to_string()
+        } else {
+            format!("{prefix}.{k}")
+        }
+    };
+    match v {
+        Value::Tensor(t) => {
+            if out.len() >= MAX_TENSORS {
+                return Err(format!(
+                    "the pickled object lists more than {MAX_TENSORS} tensors"
+                ));
+            }
+            out.push((prefix.to_string(), (**t).clone()))
+        }
+        Value::Dict(d) if depth < MAX_NESTING => {
+            for (k, v) in d.borrow().iter() {
+                let key = match k {
+                    Value::Str(s) => s.to_string(),
+                    Value::Int(i) => i.to_string(),
+                    _ => continue,
+                };
+                flatten(v, &join(&key), depth + 1, visits, out)?;
+            }
+        }
+        Value::List(l) if depth < MAX_NESTING => {
+            for (i, v) in l.borrow().iter().enumerate() {
+                flatten(v, &join(&i.to_string()), depth + 1, visits, out)?;
+            }
+        }
+        Value::Tuple(t) if depth < MAX_NESTING => {
+            for (i, v) in t.iter().enumerate() {
+                flatten(v, &join(&i.to_string()), depth + 1, visits, out)?;
+            }
+        }
+        _ => {}
+    }
+    Ok(())
+}
+
+/// The archive's folder prefix (`archive/`), from the member holding `data.pkl`.
+fn find_prefix(members: &[Member]) -> Option<String> {
+    members
+        .iter()
+        .filter_map(|m| m.name.strip_suffix("data.pkl"))
+        .filter(|p| p.ends_with('/') && p.matches('/').count() == 1)
+        .min_by_key(|p| p.len())
+        .map(str::to_string)
+}
+
+fn not_zip_problem(bytes: &[u8]) -> String {
+    if bytes.starts_with(LEGACY_MAGIC) {
+        "legacy (pre-1.6) torch.save format is not supported; re-save with torch>=1.6".into()
+    } else if bytes.first() == Some(&0x80) {
+        "a bare pickle, not a torch.save zip archive (torch>=1.6 writes zip archives)".into()
+    } else {
+        "not a torch.save zip archive (no zip signature)".into()
+    }
+}
+
+/// Indexes one `torch.save` archive; tensors point at file index `file_index`.
+fn index_file(file: &SourceFile, file_index: usize) -> Result<Vec<TensorInfo>, CheckpointError> {
+    let path = &file.path;
+    let bytes = file.bytes();
+    if bytes.is_empty() {
+        return Err(CheckpointError::invalid(path, "file is empty"));
+    }
+    if !bytes.starts_with(b"PK") {
+        return Err(CheckpointError::invalid(path, not_zip_problem(bytes)));
+    }
+    let members = archive::members(file)?;
+    let prefix = find_prefix(&members).ok_or_else(|| {
+        CheckpointError::invalid(
+            path,
+            "zip archive has no `<archive>/data.pkl`: not a torch.save checkpoint",
+        )
+    })?;
+    let by_name: HashMap<&str, &Member> = members.iter().map(|m| (m.name.as_str(), m)).collect();
+
+    let big_endian = match by_name.get(format!("{prefix}byteorder").as_str()) {
+        Some(m) => {
+            let b = archive::member_prefix(file, m, 16)?;
+            match b.as_slice() {
+                b"little" => false,
+                b"big" => true,
+                other => {
+                    return Err(CheckpointError::invalid(
+                        path,
+                        format!(
+                            "byteorder member says `{}`, expected `little` or `big`",
+                            String::from_utf8_lossy(other)
+                        ),
+                    ));
+                }
+            }
+        }
+        None => false,
+    };
+
+    let pkl = by_name[format!("{prefix}data.pkl").as_str()];
+    if pkl.size > pickle::MAX_PICKLE_BYTES as u64 {
+        return Err(CheckpointError::invalid(
+            path,
+            format!(
+                "data.pkl is {} bytes, more than the {} MiB limit",
+                pkl.size,
+                pickle::MAX_PICKLE_BYTES >> 20
+            ),
+        ));
+    }
+    let pkl_bytes = archive::member_prefix(file, pkl, pickle::MAX_PICKLE_BYTES)?;
+    let root = pickle::load(&pkl_bytes).map_err(|e| CheckpointError::invalid(path, e))?;
+
+    let mut refs = Vec::new();
+    let mut visits = 0;
+    flatten(&root, "", 0, &mut visits, &mut refs).map_err(|e| CheckpointError::invalid(path, e))?;
+
+    let mut out = Vec::with_capacity(refs.len());
+    for (name, r) in refs {
+        let bad = |what: String| CheckpointError::invalid(path, format!("tensor `{name}`: {what}"));
+        let member_name = format!("{prefix}data/{}", r.key);
+        let member = by_name.get(member_name.as_str()).ok_or_else(|| {
+            bad(format!(
+                "its storage `{member_name}` is missing from the archive"
+            ))
+        })?;
+        let dtype = dtype_of(&r.storage_type);
+        let to_usize = |v: u64| usize::try_from(v).map_err(|_| bad(format!("{v} is too large")));
+        let shape = r
+            .size
+            .iter()
+            .map(|&d| to_usize(d))
+            .collect::<Result<Vec<_>, _>>()?;
+        let strides = r
+            .stride
+            .iter()
+            .map(|&d| to_usize(d))
+            .collect::<Result<Vec<_>, _>>()?;
+        let element_offset = to_usize(r.offset)?;
+        if let Some(size) = dtype.size() {
+            // The storage member must hold the declared element count, and the tensor's
+            // furthest element must lie inside the storage.
+            let declared = r.storage_numel.checked_mul(size as u64);
+            if declared.is_none_or(|d| d > member.size) {
+                return Err(bad(format!(
+                    "storage declares {} elements of {size} bytes but its member holds {} bytes",
+                    r.storage_numel, member.size
+                )));
+            }
+            let numel = shape.iter().try_fold(1usize, |a, &b| a.checked_mul(b));
+            let last = match numel {
+                Some(0) => Some(0),
+                Some(_) => shape
+                    .iter()
+                    .zip(&strides)
+                    .try_fold(element_offset, |acc, (d, s)| {
+                        acc.checked_add((d - 1).checked_mul(*s)?)
+                    })
+                    .and_then(|l| l.checked_add(1)),
+                None => None,
+            };
+            if last.is_none_or(|l| l as u64 > r.storage_numel) {
+                return Err(bad(format!(
+                    "shape {shape:?}, strides {strides:?} and offset {element_offset} reach past its storage of {} elements",
+                    r.storage_numel
+                )));
+            }
+        }
+        let strides = if is_c_contiguous(&shape, &strides) {
+            None
+        } else {
+            Some(strides)
+        };
+        out.push(TensorInfo {
+            name,
+            dtype,
+            shape,
+            file: file_index,
+            storage: member.storage.clone(),
+            element_offset,
+            strides,
+            big_endian,
+        });
+    }
+    Ok(out)
+}
+
+/// Opens one or more `torch.save` archives (a single file, or shards).
+pub fn open_files(files: Vec<SourceFile>) -> Result<Opened, CheckpointError> {
+    let mut tensors = Vec::new();
+    for (i, file) in files.iter().enumerate() {
+        tensors.extend(index_file(file, i)?);
+    }
+    let mut warnings = Vec::new();
+    if tensors.is_empty() {
+        warnings.push(format!(
+            "{}: the pickled object holds no tensors",
+            files
+                .first()
+                .map(|f| f.path.display().to_string())
+                .unwrap_or_default()
+        ));
+    }
+    Ok(Opened {
+        format: Format::Pytorch,
+        files,
+        tensors,
+        hints: None,
+        warnings,
+    })
+}
+
+/// Opens a sharded checkpoint from its `pytorch_model.bin.index.json` (same `weight_map`
+/// layout as safetensors' index).
+pub fn open_sharded(index_path: &Path) -> Result<Opened, CheckpointError> {
+    super::safetensors::open_sharded_with(index_path, open_files)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn contiguity_ignores_unit_dimensions() {
+        assert!(is_c_contiguous(&[4, 3], &[3, 1]));
+        assert!(is_c_contiguous(&[1, 3], &[7, 1]));
+        assert!(!is_c_contiguous(&[4, 3], &[1, 4]));
+    }
+
+    #[test]
+    fn a_list_referenced_many_times_stops_at_the_visit_limit() {
+        // L = [t] * 1000 built from memo references, then [L] * 1000 * 1000 by the same
+        // trick: 10^9 paths from a pickle of a few kilobytes.
+        let t = Value::Tensor(std::rc::Rc::new(TensorRef {
+            key: "0".into(),
+            storage_type: "FloatStorage".into(),
+            storage_numel: 1,
+            offset: 0,
+            size: vec![1],
+            stride: vec![1],
+        }));
+        let l = |v: Value| Value::List(std::rc::Rc::new(std::cell::RefCell::new(vec![v; 1000])));
+        let root = l(l(l(t)));
+        let mut out = Vec::new();
+        let e = flatten(&root, "", 0, &mut 0, &mut out).unwrap_err();
+        assert!(e.contains("more than"), "{e}");
+        assert!(out.len() <= MAX_TENSORS);
+    }
+
+    #[test]
+    fn legacy_magic_gets_its_own_message() {
+        let mut b = LEGACY_MAGIC.to_vec();
+        b.extend_from_slice(b".");
+        assert!(not_zip_problem(&b).contains("legacy (pre-1.6)"));
+    }
+}
