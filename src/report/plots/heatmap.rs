@@ -14,9 +14,11 @@ use super::{ColorScale, Heatmap, HeatmapGrid, Matrix};
 /// Largest number of rows or columns drawn; bigger matrices are block-averaged
 /// first so the embedded image stays below about 350 kB.
 const MAX_CELLS: usize = 512;
-/// Images smaller than this many pixels along an axis have their cells
-/// repeated, so viewers that smooth scaled images still show sharp cells.
-const MIN_IMAGE_PX: usize = 256;
+/// Each image pixel may cover at most this many display pixels. Cells are
+/// repeated to get there, because some viewers (`rsvg-convert` 2.54, checked
+/// by rendering) ignore `image-rendering` and smooth a scaled-up image, which
+/// blurs cell edges over one image pixel.
+const MAX_STRETCH: f64 = 2.0;
 const BAR_WIDTH: f64 = 16.0;
 
 /// Block mean (ignoring NaN) so that neither dimension exceeds [`MAX_CELLS`].
@@ -95,8 +97,16 @@ fn draw_cells(
     range: (f64, f64),
     table: &[[u8; 3]],
 ) {
-    let sx = (MIN_IMAGE_PX / cols.max(1)).max(1);
-    let sy = (MIN_IMAGE_PX / rows.max(1)).max(1);
+    let repeat = |display: f64, cells: usize| -> usize {
+        let s = (display / (MAX_STRETCH * cells.max(1) as f64)).ceil();
+        if s.is_finite() {
+            (s as usize).clamp(1, 64)
+        } else {
+            1
+        }
+    };
+    let sx = repeat(area.width(), cols);
+    let sy = repeat(area.height(), rows);
     let (w, h) = (cols * sx, rows * sy);
     let mut idx = Vec::with_capacity(w * h);
     for row in values.chunks(cols.max(1)) {
@@ -303,11 +313,8 @@ pub fn heatmap(h: &Heatmap) -> String {
         tick_size: TICK_SIZE,
     };
     axes.axes(&mut svg);
-    let labels_area = Area {
-        left: area.left,
-        ..area
-    };
-    axis_labels(&mut svg, labels_area, &h.x_label, &h.y_label, height);
+    let y_label_x = area.left - max_label_width(&y_ticks, TICK_SIZE) - 22.0;
+    axis_labels(&mut svg, area, (&h.x_label, &h.y_label), y_label_x, height);
     let bar_left = area.right + 18.0;
     match range {
         Some(r) => draw_color_bar(
@@ -457,7 +464,8 @@ pub fn heatmap_grid(g: &HeatmapGrid) -> String {
         right: left + grid_w,
         bottom: grid_bottom,
     };
-    axis_labels(&mut svg, whole, &g.x_label, &g.y_label, height);
+    let y_label_x = left - max_label_width(&y_tick_probe, TICK_SIZE) - 22.0;
+    axis_labels(&mut svg, whole, (&g.x_label, &g.y_label), y_label_x, height);
     let bar_left = whole.right + 18.0;
     let bar_top = top0 + title_h;
     match range {
@@ -600,11 +608,17 @@ mod tests {
         let doc = parse(&svg);
         assert_eq!(texts(&doc, "nan-label"), vec!["NaN"]);
         let (w, h, rgb) = first_image(&doc);
-        // 64 cells repeated 4× to reach 256 px: cell (5, 7) is pixel block (20.., 28..).
-        assert_eq!((w, h), (256, 256));
+        // Square cells, each repeated s times: cell (5, 7) is pixel block (5s.., 7s..).
+        assert_eq!(w, h);
+        assert_eq!(w % 64, 0);
+        let s = w / 64;
+        assert!(s > 1, "a 64-cell map shown at ~450 px is upscaled");
         let px = |r: usize, c: usize| &rgb[3 * (r * w + c)..3 * (r * w + c) + 3];
-        assert_eq!(px(5 * 4 + 1, 7 * 4 + 2), &super::super::NAN_COLOR);
-        assert_ne!(px(5 * 4 + 1, 8 * 4 + 2), &super::super::NAN_COLOR);
+        for (dr, dc) in [(0, 0), (s - 1, s - 1)] {
+            assert_eq!(px(5 * s + dr, 7 * s + dc), &super::super::NAN_COLOR);
+        }
+        assert_ne!(px(5 * s, 8 * s), &super::super::NAN_COLOR);
+        assert_ne!(px(5 * s, 7 * s - 1), &super::super::NAN_COLOR);
         // The diagonal holds the maximum: the top colour of the diverging map.
         assert_eq!(px(0, 0), &Colormap::Diverging.rgb(1.0));
     }

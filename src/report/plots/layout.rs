@@ -169,9 +169,15 @@ impl AxisDraw<'_> {
     }
 }
 
-/// The x-axis label centred under the area and the y-axis label rotated on the
-/// left edge of the image.
-pub(crate) fn axis_labels(svg: &mut Svg, area: Area, x_label: &str, y_label: &str, height: f64) {
+/// The x-axis label centred under the area, near the bottom of the image, and
+/// the y-axis label rotated and centred on `y_label_x`.
+pub(crate) fn axis_labels(
+    svg: &mut Svg,
+    area: Area,
+    (x_label, y_label): (&str, &str),
+    y_label_x: f64,
+    height: f64,
+) {
     if !x_label.is_empty() {
         svg.text(
             (area.left + area.right) / 2.0,
@@ -183,7 +189,7 @@ pub(crate) fn axis_labels(svg: &mut Svg, area: Area, x_label: &str, y_label: &st
     if !y_label.is_empty() {
         let cy = (area.top + area.bottom) / 2.0;
         svg.text(
-            18.0,
+            y_label_x,
             cy,
             y_label,
             TextStyle::new(LABEL_SIZE, Anchor::Middle, "y-label").rotate(-90.0),

@@ -11,7 +11,7 @@ use super::{LineChart, RefLine, Scale, SmallMultiples, Spectrum};
 
 /// Fill of shaded x ranges: a light warm grey that stays visible under the
 /// grid but does not compete with the lines.
-const SHADE_FILL: &str = "#f3e7d3";
+const SHADE_FILL: &str = "#f5eee3";
 const SHADE_INK: &str = "#8a6a3a";
 const REF_INK: &str = "#444444";
 
@@ -265,7 +265,13 @@ pub fn line_chart(chart: &LineChart) -> String {
         }
     }
     axes.axes(&mut svg);
-    axis_labels(&mut svg, area, &chart.x_label, &chart.y_label, height);
+    axis_labels(
+        &mut svg,
+        area,
+        (&chart.x_label, &chart.y_label),
+        18.0,
+        height,
+    );
     if non_positive > 0 {
         note(
             &mut svg,
@@ -363,7 +369,9 @@ fn draw_ref_lines(
                 area.right - 5.0,
                 ly,
                 &r.label,
-                TextStyle::new(SMALL_SIZE, Anchor::End, "ref-label").fill(REF_INK),
+                TextStyle::new(SMALL_SIZE, Anchor::End, "ref-label")
+                    .fill(REF_INK)
+                    .halo(),
             );
         }
     }
@@ -390,7 +398,9 @@ fn draw_ref_lines(
                 lx,
                 ly,
                 &r.label,
-                TextStyle::new(SMALL_SIZE, anchor, "ref-label").fill(REF_INK),
+                TextStyle::new(SMALL_SIZE, anchor, "ref-label")
+                    .fill(REF_INK)
+                    .halo(),
             );
         }
     }
@@ -556,7 +566,7 @@ pub fn small_multiples(m: &SmallMultiples) -> String {
             right: width - 20.0,
             bottom: a.bottom,
         };
-        axis_labels(&mut svg, whole, &m.x_label, "", height);
+        axis_labels(&mut svg, whole, (&m.x_label, ""), 18.0, height);
         if !m.y_label.is_empty() {
             svg.text(
                 18.0,

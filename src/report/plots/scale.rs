@@ -232,13 +232,14 @@ pub(crate) fn superscript(n: i32) -> String {
 }
 
 /// Ticks for a log10 axis whose bounds are `lo`, `hi` in log10 units: every
-/// power of ten inside the range (thinned to about `target`), and the 2× and 5×
-/// multiples when fewer than two powers of ten are visible.
+/// power of ten inside the range (thinned to about `target`), labelled 10ⁿ;
+/// when fewer than three powers of ten are visible, 1, 2 and 5 times each power
+/// instead, labelled as plain numbers.
 pub(crate) fn log_ticks(lo: f64, hi: f64, target: usize) -> Vec<(f64, String)> {
     let first = lo.ceil() as i64;
     let last = hi.floor() as i64;
     let decades = last - first + 1;
-    if decades >= 2 {
+    if decades >= 3 {
         let every = ((decades as f64) / target.max(1) as f64).ceil().max(1.0) as i64;
         return (first..=last)
             .filter(|e| e.rem_euclid(every) == 0)
@@ -312,6 +313,14 @@ mod tests {
         let v: Vec<f64> = t.iter().map(|x| x.0).collect();
         assert_eq!(v, vec![1e-3, 1e-2, 1e-1, 1.0, 10.0]);
         assert_eq!(t[0].1, "10⁻³");
+    }
+
+    #[test]
+    fn narrow_log_ranges_use_one_two_five_ticks() {
+        // 10^-0.5 ≈ 0.316 .. 10^1.6 ≈ 39.8 holds 0.5, 1, 2, 5, 10, 20.
+        let t = log_ticks(-0.5, 1.6, 8);
+        let labels: Vec<&str> = t.iter().map(|x| x.1.as_str()).collect();
+        assert_eq!(labels, vec!["0.5", "1", "2", "5", "10", "20"]);
     }
 
     #[test]

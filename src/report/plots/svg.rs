@@ -43,6 +43,8 @@ pub(crate) struct TextStyle<'a> {
     pub rotate: f64,
     /// CSS class, so tests can find axis labels, titles and tick labels.
     pub class: &'a str,
+    /// White outline behind the glyphs, for labels drawn over data.
+    pub halo: bool,
 }
 
 impl<'a> TextStyle<'a> {
@@ -54,7 +56,12 @@ impl<'a> TextStyle<'a> {
             fill: INK,
             rotate: 0.0,
             class,
+            halo: false,
         }
+    }
+    pub fn halo(mut self) -> Self {
+        self.halo = true;
+        self
     }
     pub fn bold(mut self) -> Self {
         self.bold = true;
@@ -231,6 +238,11 @@ impl Svg {
         );
         if style.bold {
             attrs.push_str(" font-weight=\"bold\"");
+        }
+        if style.halo {
+            attrs.push_str(
+                " stroke=\"#ffffff\" stroke-width=\"3\" stroke-linejoin=\"round\" paint-order=\"stroke\"",
+            );
         }
         if style.rotate != 0.0 {
             let _ = write!(
