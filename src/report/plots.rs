@@ -349,3 +349,121 @@ pub struct HeatmapGrid {
     /// Image width in pixels; the height follows from the layout.
     pub width: u32,
 }
+
+#[cfg(test)]
+mod robustness {
+    //! Any input, however odd, must give a well-formed SVG and no panic.
+    use super::*;
+    use proptest::prelude::*;
+
+    /// Numbers a table can really contain, plus the awkward ones.
+    fn value() -> impl Strategy<Value = f64> {
+        prop_oneof![
+            4 => -10.0f64..10.0,
+            1 => Just(f64::NAN),
+            1 => Just(f64::INFINITY),
+            1 => Just(f64::NEG_INFINITY),
+            1 => Just(0.0),
+            1 => Just(1e308),
+            1 => Just(-1e308),
+            1 => Just(1e-310),
+        ]
+    }
+
+    fn well_formed(svg: &str) {
+        if let Err(e) = roxmltree::Document::parse(svg) {
+            panic!("not well-formed: {e}");
+        }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(64))]
+
+        #[test]
+        fn line_charts_never_panic(
+            series in prop::collection::vec(prop::collection::vec((value(), value()), 0..50), 0..4),
+            log in any::<bool>(),
+            shade in (value(), value()),
+            h in value(),
+            v in value(),
+            w in 0u32..2000,
+            ht in 0u32..1000,
+        ) {
+            let mut c = LineChart::new("t <&>", "x \"unit\"", "y");
+            c.series = series.into_iter().enumerate().map(|(i, p)| Series::new(format!("s{i}"), p)).collect();
+            c.y_scale = if log { Scale::Log10 } else { Scale::Linear };
+            c.shaded.push(XRange { start: shade.0, end: shade.1, label: "band".into() });
+            c.h_lines.push(RefLine::new(h, "h"));
+            c.v_lines.push(RefLine::new(v, "v"));
+            c.width = w;
+            c.height = ht;
+            well_formed(&line_chart(&c));
+        }
+
+        #[test]
+        fn heatmaps_never_panic(
+            rows in 0usize..12,
+            cols in 0usize..12,
+            fill in prop::collection::vec(value(), 144),
+            range in prop::option::of((value(), value())),
+            diverging in any::<bool>(),
+            xr in (value(), value()),
+        ) {
+            let m = Matrix::new(rows, cols, fill[..rows * cols].to_vec()).expect("shape");
+            let color = ColorScale {
+                colormap: if diverging { Colormap::Diverging } else { Colormap::Sequential },
+                range,
+                label: "c".into(),
+            };
+            let h = Heatmap {
+                title: "h".into(),
+                x_label: "x".into(),
+                y_label: "y".into(),
+                matrix: m.clone(),
+                x_range: xr,
+                y_range: (0.0, rows as f64),
+                color: color.clone(),
+                width: 800,
+                height: 400,
+            };
+            well_formed(&heatmap(&h));
+            let g = HeatmapGrid {
+                title: "g".into(),
+                x_label: "x".into(),
+                y_label: "y".into(),
+                panels: vec![
+                    HeatmapPanel { title: "a".into(), matrix: m.clone() },
+                    HeatmapPanel { title: "b".into(), matrix: m },
+                ],
+                x_range: xr,
+                y_range: (0.0, 1.0),
+                color,
+                columns: None,
+                width: 800,
+            };
+            well_formed(&heatmap_grid(&g));
+        }
+
+        #[test]
+        fn spectra_and_small_multiples_never_panic(
+            sv in prop::collection::vec(value(), 0..40),
+            rank in value(),
+            panels in prop::collection::vec(prop::collection::vec((value(), value()), 0..30), 0..9),
+        ) {
+            well_formed(&spectrum_plot(&Spectrum {
+                title: "s".into(),
+                singular_values: sv,
+                effective_rank: Some(rank),
+                width: 800,
+                height: 400,
+            }));
+            well_formed(&small_multiples(&SmallMultiples {
+                title: "m".into(),
+                x_label: "x".into(),
+                y_label: "y".into(),
+                panels: panels.into_iter().map(|p| Panel { title: "p".into(), points: p }).collect(),
+                width: 800,
+            }));
+        }
+    }
+}

@@ -126,11 +126,12 @@ pub(crate) fn nice_step(span: f64, target: usize) -> f64 {
 /// Ticks at multiples of a nice step inside `[lo, hi]`.
 pub(crate) fn linear_ticks(lo: f64, hi: f64, target: usize) -> Vec<(f64, String)> {
     let step = nice_step(hi - lo, target);
-    let first = (lo / step).ceil() as i64;
-    let last = (hi / step).floor() as i64;
-    if last < first || last - first > 1000 {
+    let (first, last) = ((lo / step).ceil(), (hi / step).floor());
+    // Checked in f64: bounds near ±f64::MAX would overflow as integers.
+    if !(last >= first && last - first <= 1000.0) {
         return Vec::new();
     }
+    let (first, last) = (first as i64, last as i64);
     let values: Vec<f64> = (first..=last).map(|k| k as f64 * step).collect();
     let labels = format_ticks(&values, step);
     values.into_iter().zip(labels).collect()
