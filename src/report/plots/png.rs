@@ -3,9 +3,10 @@
 //! megabytes; an 8-bit palette image is one byte per cell.
 //!
 //! Only what we need: colour type 3 (palette), bit depth 8, filter 0 on every
-//! row, and a zlib stream made of *stored* (uncompressed) deflate blocks, with
+//! row, and a zlib stream holding one deflate block with the fixed Huffman
+//! codes and greedy LZ77 matches (or stored blocks when that is smaller), with
 //! the CRC-32 and Adler-32 checksums computed here (PNG spec, ISO/IEC 15948;
-//! zlib RFC 1950; deflate RFC 1951 §3.2.4).
+//! zlib RFC 1950; deflate RFC 1951).
 
 /// CRC-32 as used by PNG chunks (reflected polynomial 0xEDB88320, initial and
 /// final XOR 0xFFFFFFFF; PNG spec annex D).
@@ -94,6 +95,174 @@ pub(crate) fn zlib_stored(data: &[u8]) -> Vec<u8> {
     out
 }
 
+/// Writes bits least-significant first, as deflate requires (RFC 1951 §3.1.1).
+struct BitWriter {
+    out: Vec<u8>,
+    acc: u64,
+    n: u32,
+}
+
+impl BitWriter {
+    fn put(&mut self, value: u32, bits: u32) {
+        self.acc |= u64::from(value) << self.n;
+        self.n += bits;
+        while self.n >= 8 {
+            self.out.push(self.acc as u8);
+            self.acc >>= 8;
+            self.n -= 8;
+        }
+    }
+
+    /// A Huffman code is defined most-significant bit first, so it is reversed
+    /// before packing (RFC 1951 §3.1.1).
+    fn put_code(&mut self, code: u32, bits: u32) {
+        self.put(code.reverse_bits() >> (32 - bits), bits);
+    }
+
+    fn finish(mut self) -> Vec<u8> {
+        if self.n > 0 {
+            self.out.push(self.acc as u8);
+        }
+        self.out
+    }
+}
+
+/// Literal/length symbol with the fixed Huffman code of RFC 1951 §3.2.6.
+fn put_fixed_symbol(w: &mut BitWriter, sym: u32) {
+    match sym {
+        0..=143 => w.put_code(0x30 + sym, 8),
+        144..=255 => w.put_code(0x190 + sym - 144, 9),
+        256..=279 => w.put_code(sym - 256, 7),
+        _ => w.put_code(0xC0 + sym - 280, 8),
+    }
+}
+
+/// Base lengths of length codes 257..=285 and their extra bits (RFC 1951 §3.2.5).
+const LEN_BASE: [u16; 29] = [
+    3, 4, 5, 6, 7, 8, 9, 10, 11, 13, 15, 17, 19, 23, 27, 31, 35, 43, 51, 59, 67, 83, 99, 115, 131,
+    163, 195, 227, 258,
+];
+const LEN_EXTRA: [u8; 29] = [
+    0, 0, 0, 0, 0, 0, 0, 0, 1, 1, 1, 1, 2, 2, 2, 2, 3, 3, 3, 3, 4, 4, 4, 4, 5, 5, 5, 5, 0,
+];
+/// Base distances of distance codes 0..=29 and their extra bits (RFC 1951 §3.2.5).
+const DIST_BASE: [u16; 30] = [
+    1, 2, 3, 4, 5, 7, 9, 13, 17, 25, 33, 49, 65, 97, 129, 193, 257, 385, 513, 769, 1025, 1537,
+    2049, 3073, 4097, 6145, 8193, 12289, 16385, 24577,
+];
+const DIST_EXTRA: [u8; 30] = [
+    0, 0, 0, 0, 1, 1, 2, 2, 3, 3, 4, 4, 5, 5, 6, 6, 7, 7, 8, 8, 9, 9, 10, 10, 11, 11, 12, 12, 13,
+    13,
+];
+
+fn put_match(w: &mut BitWriter, len: usize, dist: usize) {
+    let li = LEN_BASE
+        .iter()
+        .rposition(|&b| usize::from(b) <= len)
+        .unwrap_or(0);
+    put_fixed_symbol(w, 257 + li as u32);
+    w.put(
+        (len - usize::from(LEN_BASE[li])) as u32,
+        u32::from(LEN_EXTRA[li]),
+    );
+    let di = DIST_BASE
+        .iter()
+        .rposition(|&b| usize::from(b) <= dist)
+        .unwrap_or(0);
+    w.put_code(di as u32, 5);
+    w.put(
+        (dist - usize::from(DIST_BASE[di])) as u32,
+        u32::from(DIST_EXTRA[di]),
+    );
+}
+
+/// One deflate block with the fixed Huffman codes, matches found greedily
+/// with a hash chain over 3-byte prefixes (the LZ77 scheme RFC 1951 §4
+/// describes). Heatmap rows repeat whole (upscaled cells) or hold runs of one
+/// colour, so this small encoder already shrinks them several-fold.
+pub(crate) fn deflate_fixed(data: &[u8]) -> Vec<u8> {
+    const WINDOW: usize = 32_768;
+    const MAX_CHAIN: usize = 48;
+    const HASH_BITS: u32 = 15;
+    let hash = |i: usize| -> usize {
+        let v = u32::from(data[i]) | u32::from(data[i + 1]) << 8 | u32::from(data[i + 2]) << 16;
+        (v.wrapping_mul(0x9E37_79B1) >> (32 - HASH_BITS)) as usize
+    };
+    let mut head = vec![usize::MAX; 1 << HASH_BITS];
+    let mut prev = vec![usize::MAX; WINDOW];
+    let mut w = BitWriter {
+        out: Vec::with_capacity(data.len() / 4 + 16),
+        acc: 0,
+        n: 0,
+    };
+    w.put(1, 1); // BFINAL
+    w.put(1, 2); // BTYPE = 01, fixed Huffman codes
+    let insert = |i: usize, head: &mut Vec<usize>, prev: &mut Vec<usize>| {
+        if i + 2 < data.len() {
+            let h = hash(i);
+            prev[i % WINDOW] = head[h];
+            head[h] = i;
+        }
+    };
+    let mut i = 0;
+    while i < data.len() {
+        let (mut best_len, mut best_dist) = (0, 0);
+        if i + 2 < data.len() {
+            let mut cand = head[hash(i)];
+            let mut chain = 0;
+            while cand != usize::MAX && i - cand <= WINDOW && chain < MAX_CHAIN {
+                let max = (data.len() - i).min(258);
+                let mut l = 0;
+                while l < max && data[cand + l] == data[i + l] {
+                    l += 1;
+                }
+                if l > best_len {
+                    best_len = l;
+                    best_dist = i - cand;
+                    if l == max {
+                        break;
+                    }
+                }
+                let next = prev[cand % WINDOW];
+                // Older entries only: a slot overwritten by a newer position ends the chain.
+                if next == usize::MAX || next >= cand {
+                    break;
+                }
+                cand = next;
+                chain += 1;
+            }
+        }
+        if best_len >= 3 {
+            put_match(&mut w, best_len, best_dist);
+            for k in i..i + best_len {
+                insert(k, &mut head, &mut prev);
+            }
+            i += best_len;
+        } else {
+            put_fixed_symbol(&mut w, u32::from(data[i]));
+            insert(i, &mut head, &mut prev);
+            i += 1;
+        }
+    }
+    put_fixed_symbol(&mut w, 256); // end of block
+    w.finish()
+}
+
+/// A zlib stream of `data`: the fixed-code deflate block, or stored blocks if
+/// those happen to be smaller (random-looking data).
+pub(crate) fn zlib(data: &[u8]) -> Vec<u8> {
+    let stored = zlib_stored(data);
+    let body = deflate_fixed(data);
+    if body.len() + 6 >= stored.len() {
+        return stored;
+    }
+    let mut out = Vec::with_capacity(body.len() + 6);
+    out.extend_from_slice(&[0x78, 0x01]);
+    out.extend_from_slice(&body);
+    out.extend_from_slice(&adler32(data).to_be_bytes());
+    out
+}
+
 fn chunk(out: &mut Vec<u8>, kind: &[u8; 4], data: &[u8]) {
     out.extend_from_slice(&(data.len() as u32).to_be_bytes());
     let start = out.len();
@@ -137,7 +306,7 @@ pub(crate) fn encode_indexed(
     chunk(&mut out, b"IHDR", &ihdr);
     let plte: Vec<u8> = palette.iter().flatten().copied().collect();
     chunk(&mut out, b"PLTE", &plte);
-    chunk(&mut out, b"IDAT", &zlib_stored(&raw));
+    chunk(&mut out, b"IDAT", &zlib(&raw));
     chunk(&mut out, b"IEND", &[]);
     Some(out)
 }
@@ -210,6 +379,49 @@ mod tests {
             for (i, &k) in idx.iter().enumerate() {
                 assert_eq!(&buf[3 * i..3 * i + 3], &palette[k as usize]);
             }
+        }
+    }
+
+    #[test]
+    fn compressible_images_shrink_and_still_decode() {
+        // Upscaled cells: every row repeated 8 times, runs of 8 equal bytes.
+        let palette: Vec<[u8; 3]> = (0..=255u8).map(|i| [i, i, 255 - i]).collect();
+        let (w, h) = (512, 512);
+        let idx: Vec<u8> = (0..w * h)
+            .map(|k| (((k / w) / 8 * 7 + (k % w) / 8 * 13) % 255) as u8)
+            .collect();
+        let bytes = encode_indexed(w, h, &idx, &palette).expect("valid input");
+        assert!(bytes.len() < w * h / 4, "{} bytes", bytes.len());
+        let mut decoder = png::Decoder::new(std::io::Cursor::new(bytes));
+        decoder.set_transformations(png::Transformations::EXPAND);
+        let mut reader = decoder.read_info().expect("header");
+        let mut buf = vec![0; reader.output_buffer_size().expect("size")];
+        reader.next_frame(&mut buf).expect("frame");
+        for (i, &k) in idx.iter().enumerate() {
+            assert_eq!(&buf[3 * i..3 * i + 3], &palette[k as usize]);
+        }
+    }
+
+    #[test]
+    fn deflate_output_inflates_to_the_input() {
+        // miniz_oxide (the inflater the png crate uses) is the outside reader.
+        let mut data = b"abcabcabcabcXYZ".repeat(700);
+        data.extend((0..5000u32).map(|i| (i.wrapping_mul(2_654_435_761) >> 24) as u8));
+        data.extend(std::iter::repeat_n(7u8, 1000));
+        let packed = zlib(&data);
+        let back = miniz_oxide::inflate::decompress_to_vec_zlib(&packed).expect("inflate");
+        assert_eq!(back, data);
+        assert!(packed.len() < data.len());
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(48))]
+        #[test]
+        fn any_bytes_round_trip_through_zlib(
+            data in proptest::collection::vec(proptest::prop_oneof![0u8..4, proptest::num::u8::ANY], 0..20_000),
+        ) {
+            let back = miniz_oxide::inflate::decompress_to_vec_zlib(&zlib(&data)).expect("inflate");
+            proptest::prop_assert_eq!(back, data);
         }
     }
 
