@@ -285,10 +285,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         heatmap(&Heatmap {
             title: "Per-position change between checkpoints (invented data)".into(),
             x_label: "position (row index)".into(),
-            y_label: "checkpoint pair (step)".into(),
+            y_label: "checkpoint pair index".into(),
             matrix: Matrix::new(steps, cols, change)?,
             x_range: (0.0, 512.0),
-            y_range: (0.0, steps as f64),
+            // Rows are items: centre the integer labels on them.
+            y_range: (-0.5, steps as f64 - 0.5),
             color: ColorScale {
                 colormap: Colormap::Sequential,
                 range: None,
@@ -373,6 +374,39 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             width: 800,
         }),
     )?;
+
+    // Awkward input: a constant series, a lone point, NaN gaps, neighbouring
+    // labelled bands and a vertical line inside a band.
+    let mut c = LineChart::new(
+        "Awkward input: constant line, lone point, gaps, crowded labels (invented data)",
+        "position (row index)",
+        "value (arbitrary units)",
+    );
+    c.series
+        .push(Series::from_values("constant", 0.0, &[0.5; 100]));
+    c.series.push(Series::new("lone point", vec![(42.0, 0.7)]));
+    c.series.push(Series::from_values(
+        "with gaps",
+        0.0,
+        &(0..100)
+            .map(|i| {
+                if i % 25 < 3 {
+                    f64::NAN
+                } else {
+                    0.3 + 0.002 * i as f64
+                }
+            })
+            .collect::<Vec<_>>(),
+    ));
+    for (a, b) in [(10.0, 14.0), (15.0, 19.0), (20.0, 24.0), (70.0, 100.0)] {
+        c.shaded.push(XRange {
+            start: a,
+            end: b,
+            label: format!("untrained {a}–{b}"),
+        });
+    }
+    c.v_lines.push(RefLine::new(80.0, "declared maximum 80"));
+    write("line_awkward.svg", line_chart(&c))?;
 
     // Empty input.
     write(

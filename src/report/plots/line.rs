@@ -220,7 +220,7 @@ pub fn line_chart(chart: &LineChart) -> String {
         legend(&mut svg, &entries, 40.0, 36.0, width - 80.0);
     }
 
-    draw_shading(&mut svg, chart, &x, area);
+    let shade_labels = draw_shading(&mut svg, chart, &x, area);
     let axes = AxisDraw {
         area,
         x: &x,
@@ -232,16 +232,6 @@ pub fn line_chart(chart: &LineChart) -> String {
         tick_size: TICK_SIZE,
     };
     axes.grid(&mut svg);
-    let shade_labels = !chart.shaded.iter().all(|r| r.label.is_empty());
-    draw_ref_lines(
-        &mut svg,
-        &chart.h_lines,
-        &chart.v_lines,
-        &x,
-        &y,
-        area,
-        shade_labels,
-    );
 
     let mut non_positive = 0;
     for (i, s) in chart.series.iter().enumerate() {
@@ -264,6 +254,17 @@ pub fn line_chart(chart: &LineChart) -> String {
             }
         }
     }
+    let shade_label_lines = shade_labels.iter().map(|l| l.1 + 1).max().unwrap_or(0);
+    draw_ref_lines(
+        &mut svg,
+        &chart.h_lines,
+        &chart.v_lines,
+        &x,
+        &y,
+        area,
+        shade_label_lines,
+    );
+    draw_shade_labels(&mut svg, &shade_labels, area);
     axes.axes(&mut svg);
     axis_labels(
         &mut svg,
@@ -293,10 +294,20 @@ fn note(svg: &mut Svg, right: f64, y: f64, text: &str) {
     );
 }
 
-/// Shaded x ranges with their labels at the top of the plot area; a label that
-/// would overlap the previous one moves down a line.
-fn draw_shading(svg: &mut Svg, chart: &LineChart, x: &Axis, area: Area) {
+/// A shade label placed at the top of the plot area: left x, line number, text.
+type ShadeLabel<'a> = (f64, usize, &'a str);
+
+/// Draws the shaded x ranges and places their labels at the top of the plot
+/// area (drawn later, over the lines); a label that would overlap an earlier
+/// one moves down a line.
+fn draw_shading<'a>(
+    svg: &mut Svg,
+    chart: &'a LineChart,
+    x: &Axis,
+    area: Area,
+) -> Vec<ShadeLabel<'a>> {
     let mut placed: Vec<(f64, f64, usize)> = Vec::new();
+    let mut labels = Vec::new();
     for r in &chart.shaded {
         let (Some(a), Some(b)) = (x.map_clamped(r.start), x.map_clamped(r.end)) else {
             continue;
@@ -328,11 +339,20 @@ fn draw_shading(svg: &mut Svg, chart: &LineChart, x: &Axis, area: Area) {
             line += 1;
         }
         placed.push((lx, lx + w, line));
+        labels.push((lx, line, r.label.as_str()));
+    }
+    labels
+}
+
+fn draw_shade_labels(svg: &mut Svg, labels: &[ShadeLabel<'_>], area: Area) {
+    for &(lx, line, text) in labels {
         svg.text(
             lx,
             area.top + 14.0 + 14.0 * line as f64,
-            &r.label,
-            TextStyle::new(SMALL_SIZE, Anchor::Start, "shade-label").fill(SHADE_INK),
+            text,
+            TextStyle::new(SMALL_SIZE, Anchor::Start, "shade-label")
+                .fill(SHADE_INK)
+                .halo(),
         );
     }
 }
@@ -346,7 +366,7 @@ fn draw_ref_lines(
     x: &Axis,
     y: &Axis,
     area: Area,
-    below_shade_labels: bool,
+    shade_label_lines: usize,
 ) {
     for r in h_lines {
         let Some(py) = y.map(r.value) else { continue };
@@ -388,7 +408,7 @@ fn draw_ref_lines(
         );
         if !r.label.is_empty() {
             let w = text_width(&r.label, SMALL_SIZE);
-            let ly = area.top + if below_shade_labels { 44.0 } else { 14.0 };
+            let ly = area.top + 14.0 + 14.0 * shade_label_lines as f64;
             let (lx, anchor) = if px + 5.0 + w < area.right {
                 (px + 5.0, Anchor::Start)
             } else {
@@ -683,6 +703,51 @@ mod tests {
         let shade = &with_class(&doc, "shade")[0];
         assert!((attr(shade, "x") - px(300.0)).abs() < 0.01);
         assert!((attr(shade, "x") + attr(shade, "width") - px(512.0)).abs() < 0.02);
+    }
+
+    #[test]
+    fn crowded_band_labels_stack_and_vertical_labels_go_below_them() {
+        let mut c = LineChart::new("t", "x", "y");
+        c.series.push(Series::from_values("a", 0.0, &[1.0; 100]));
+        for (a, b) in [(10.0, 14.0), (15.0, 19.0), (60.0, 90.0)] {
+            c.shaded.push(XRange {
+                start: a,
+                end: b,
+                label: format!("untrained {a}–{b}"),
+            });
+        }
+        c.v_lines.push(RefLine::new(80.0, "declared 80"));
+        let svg = line_chart(&c);
+        let doc = parse(&svg);
+        let ys: Vec<f64> = with_class(&doc, "shade-label")
+            .iter()
+            .map(|n| attr(n, "y"))
+            .collect();
+        // The two neighbouring labels cannot share a line; the far one can.
+        assert!(ys[1] > ys[0], "{ys:?}");
+        assert_eq!(ys[2], ys[0]);
+        let v_label = with_class(&doc, "ref-label")
+            .into_iter()
+            .find(|n| n.text() == Some("declared 80"))
+            .expect("label");
+        assert!(attr(&v_label, "y") > ys[1]);
+        // Labels are drawn after (over) every band.
+        let order: Vec<&str> = doc
+            .descendants()
+            .filter_map(|n| n.attribute("class"))
+            .filter(|c| *c == "shade" || *c == "shade-label")
+            .collect();
+        assert_eq!(
+            order,
+            vec![
+                "shade",
+                "shade",
+                "shade",
+                "shade-label",
+                "shade-label",
+                "shade-label"
+            ]
+        );
     }
 
     #[test]
