@@ -586,6 +586,30 @@ mod tests {
         assert_eq!(texts(&doc, "colorbar-max"), vec!["0.9"]);
         assert_eq!(texts(&doc, "colorbar-min"), vec!["−0.9"]);
         assert!(texts(&doc, "tick-x").contains(&"2000".to_string()));
+        // x ticks sit where the axis range (0, 2048) puts them on the cell area.
+        let area = doc
+            .descendants()
+            .find(|n| n.attribute("class") == Some("plot-area"))
+            .expect("area");
+        let num = |n: &roxmltree::Node<'_, '_>, a: &str| -> f64 {
+            n.attribute(a).and_then(|v| v.parse().ok()).expect("number")
+        };
+        let (left, w) = (num(&area, "x"), num(&area, "width"));
+        let image = doc
+            .descendants()
+            .find(|n| n.has_tag_name("image"))
+            .expect("image");
+        assert_eq!((num(&image, "x"), num(&image, "width")), (left, w));
+        for tick in doc
+            .descendants()
+            .filter(|n| n.attribute("class") == Some("tick-x"))
+        {
+            let v: f64 = tick
+                .text()
+                .and_then(|t| t.parse().ok())
+                .expect("numeric label");
+            assert!((num(&tick, "x") - (left + v / 2048.0 * w)).abs() < 0.01);
+        }
     }
 
     #[test]

@@ -29,14 +29,33 @@ impl Area {
     }
 }
 
-/// Draws the plot title centred at the top.
+/// Draws the plot title centred at the top. A title too wide for the image
+/// is set smaller (down to 12 px) and, if still too wide, cut with "…"; the
+/// full text stays in the SVG `<title>`.
 pub(crate) fn title(svg: &mut Svg, width: f64, text: &str) {
     svg.doc_title(text);
+    let room = width - 24.0;
+    // Bold glyphs are about 10 % wider than the regular estimate.
+    let bold_width = |t: &str, size: f64| text_width(t, size) * 1.1;
+    let mut size = TITLE_SIZE;
+    while size > 12.0 && bold_width(text, size) > room {
+        size -= 0.5;
+    }
+    let mut shown: String = text.to_string();
+    if bold_width(&shown, size) > room {
+        let mut chars: Vec<char> = text.chars().collect();
+        while !chars.is_empty()
+            && bold_width(&format!("{}…", chars.iter().collect::<String>()), size) > room
+        {
+            chars.pop();
+        }
+        shown = format!("{}…", chars.iter().collect::<String>().trim_end());
+    }
     svg.text(
         width / 2.0,
         26.0,
-        text,
-        TextStyle::new(TITLE_SIZE, Anchor::Middle, "title").bold(),
+        &shown,
+        TextStyle::new(size, Anchor::Middle, "title").bold(),
     );
 }
 

@@ -682,6 +682,24 @@ mod tests {
     }
 
     #[test]
+    fn overlong_title_is_shrunk_then_cut_but_kept_whole_in_svg_title() {
+        let long = "a very long title ".repeat(10);
+        let mut c = norms_chart();
+        c.title = long.clone();
+        let svg = line_chart(&c);
+        let doc = parse(&svg);
+        let t = &with_class(&doc, "title")[0];
+        assert_eq!(attr(t, "font-size"), 12.0);
+        let shown = t.text().unwrap_or("");
+        assert!(shown.ends_with('…') && shown.len() < long.len(), "{shown}");
+        let full = doc
+            .descendants()
+            .find(|n| n.has_tag_name("title"))
+            .and_then(|n| n.text());
+        assert_eq!(full, Some(long.as_str()));
+    }
+
+    #[test]
     fn single_series_has_no_legend() {
         let mut c = norms_chart();
         c.series.truncate(1);
