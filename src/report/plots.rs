@@ -17,7 +17,7 @@
 //! crate would not help either, since the SVG backend still writes `<text>` and
 //! leaves glyphs to the viewer. The plots below need exact control (shaded
 //! ranges at known pixels, log ticks, legends that never cover data, an
-//! embedded palette PNG for heatmaps), so a ~1 000-line writer of our own is
+//! embedded palette PNG for heatmaps), so a small writer of our own is
 //! simpler than working around the library; `plotters` is not used here.
 //!
 //! Text is written as SVG `<text>` with a generic font stack ending in
