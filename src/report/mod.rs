@@ -6,4 +6,5 @@
 
 pub mod model;
 pub mod output;
+pub mod plots;
 pub mod terminal;

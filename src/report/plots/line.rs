@@ -1,0 +1,931 @@
+//! Line charts, the singular-value spectrum and small multiples of lines.
+
+use super::color::{series_color, series_dash};
+use super::layout::{
+    self, Area, AxisDraw, LABEL_SIZE, LegendEntry, SMALL_SIZE, TICK_SIZE, axis_labels, legend,
+    legend_height, legend_rows, max_label_width, no_data, thin_x_ticks,
+};
+use super::scale::{Axis, AxisKind, format_value};
+use super::svg::{Anchor, MUTED, Svg, TextStyle, num, text_width};
+use super::{LineChart, RefLine, Scale, SmallMultiples, Spectrum};
+
+/// Fill of shaded x ranges: a light warm grey that stays visible under the
+/// grid but does not compete with the lines.
+const SHADE_FILL: &str = "#f5eee3";
+const SHADE_INK: &str = "#8a6a3a";
+const REF_INK: &str = "#444444";
+
+fn axis_kind(s: Scale) -> AxisKind {
+    match s {
+        Scale::Linear => AxisKind::Linear,
+        Scale::Log10 => AxisKind::Log10,
+    }
+}
+
+/// Finite bounds of an iterator, or `None` when it yields nothing finite.
+fn bounds(values: impl Iterator<Item = f64>) -> Option<(f64, f64)> {
+    values
+        .filter(|v| v.is_finite())
+        .fold(None, |acc, v| match acc {
+            None => Some((v, v)),
+            Some((lo, hi)) => Some((lo.min(v), hi.max(v))),
+        })
+}
+
+/// Path data for one series plus what was drawn.
+struct Traced {
+    /// `d` attribute; empty when nothing could be drawn.
+    d: String,
+    /// Pixel positions of the drawable points (for markers).
+    points: Vec<(f64, f64)>,
+    /// Points left out because they were not positive on a log axis.
+    non_positive: usize,
+}
+
+/// Turns data points into path data, breaking the line at points that cannot
+/// be shown, and reducing long runs within one pixel column to first, min, max
+/// and last point (same picture, smaller file).
+fn trace(points: &[(f64, f64)], x: &Axis, y: &Axis) -> Traced {
+    let mut non_positive = 0;
+    // Segments of consecutive drawable points, in pixels.
+    let mut segments: Vec<Vec<(f64, f64)>> = vec![Vec::new()];
+    for &(px, py) in points {
+        let mapped = match (x.map(px), y.map(py)) {
+            (Some(a), Some(b)) => Some((a, b)),
+            _ => {
+                if y.kind == AxisKind::Log10 && py.is_finite() && py <= 0.0 {
+                    non_positive += 1;
+                }
+                None
+            }
+        };
+        match mapped {
+            Some(p) => {
+                if let Some(s) = segments.last_mut() {
+                    s.push(p);
+                }
+            }
+            None => {
+                if segments.last().is_some_and(|s| !s.is_empty()) {
+                    segments.push(Vec::new());
+                }
+            }
+        }
+    }
+    let mut d = String::new();
+    let mut all = Vec::new();
+    for seg in segments.iter().filter(|s| !s.is_empty()) {
+        let reduced = reduce(seg);
+        for (i, (px, py)) in reduced.iter().enumerate() {
+            d.push(if i == 0 { 'M' } else { 'L' });
+            d.push_str(&num(*px));
+            d.push(' ');
+            d.push_str(&num(*py));
+        }
+        if reduced.len() == 1 {
+            // A lone point: a zero-length segment with round caps shows as a dot.
+            d.push_str("h0.01");
+        }
+        all.extend_from_slice(seg);
+    }
+    Traced {
+        d,
+        points: all,
+        non_positive,
+    }
+}
+
+/// Keeps first, min, max and last point of every run of points that fall into
+/// the same pixel column.
+fn reduce(seg: &[(f64, f64)]) -> Vec<(f64, f64)> {
+    if seg.len() < 8 {
+        return seg.to_vec();
+    }
+    let mut out = Vec::with_capacity(seg.len().min(4096));
+    let mut i = 0;
+    while i < seg.len() {
+        let col = seg[i].0.floor();
+        let mut j = i;
+        while j + 1 < seg.len() && seg[j + 1].0.floor() == col {
+            j += 1;
+        }
+        if j - i < 4 {
+            out.extend_from_slice(&seg[i..=j]);
+        } else {
+            let run = &seg[i..=j];
+            let (mut kmin, mut kmax) = (0, 0);
+            for (k, p) in run.iter().enumerate() {
+                if p.1 < run[kmin].1 {
+                    kmin = k;
+                }
+                if p.1 > run[kmax].1 {
+                    kmax = k;
+                }
+            }
+            let mut keep = vec![0, kmin, kmax, run.len() - 1];
+            keep.sort_unstable();
+            keep.dedup();
+            out.extend(keep.into_iter().map(|k| run[k]));
+        }
+        i = j + 1;
+    }
+    out
+}
+
+/// Draws a line chart.
+///
+/// Layout, top to bottom: title, legend (only with more than one series,
+/// wrapped into rows so it never covers data), plot area, x tick labels and
+/// x-axis label. The x range spans all points, shaded ranges and vertical
+/// reference lines exactly; the y range spans all drawable points and
+/// horizontal reference lines plus 5 % padding. Series with at most 40 points
+/// also get a dot per point. Returns a "no data" plot when no series has a
+/// drawable point.
+pub fn line_chart(chart: &LineChart) -> String {
+    let width = f64::from(chart.width.max(200));
+    let height = f64::from(chart.height.max(150));
+    let kind = axis_kind(chart.y_scale);
+    let drawable_y = |y: f64| y.is_finite() && (kind == AxisKind::Linear || y > 0.0);
+    let pts = || {
+        chart
+            .series
+            .iter()
+            .flat_map(|s| s.points.iter())
+            .filter(|(x, y)| x.is_finite() && drawable_y(*y))
+    };
+    let (Some(xb), Some(yb)) = (
+        bounds(
+            pts()
+                .map(|p| p.0)
+                .chain(chart.shaded.iter().flat_map(|r| [r.start, r.end]))
+                .chain(chart.v_lines.iter().map(|r| r.value)),
+        ),
+        bounds(
+            pts().map(|p| p.1).chain(
+                chart
+                    .h_lines
+                    .iter()
+                    .map(|r| r.value)
+                    .filter(|&v| drawable_y(v)),
+            ),
+        ),
+    ) else {
+        return no_data(width, height, &chart.title);
+    };
+    if pts().next().is_none() {
+        return no_data(width, height, &chart.title);
+    }
+
+    let entries: Vec<LegendEntry<'_>> = if chart.series.len() > 1 {
+        chart
+            .series
+            .iter()
+            .enumerate()
+            .map(|(i, s)| LegendEntry {
+                color: series_color(i),
+                dash: series_dash(i),
+                label: &s.label,
+            })
+            .collect()
+    } else {
+        Vec::new()
+    };
+
+    // The y axis needs its tick labels before the left margin is known; the
+    // pixel range is fixed afterwards.
+    let rows = legend_rows(&entries, width - 80.0);
+    let top = 42.0
+        + if rows > 0 {
+            legend_height(rows) + 6.0
+        } else {
+            0.0
+        };
+    let bottom = height - 52.0;
+    let y_probe = Axis::new(kind, yb.0, yb.1, bottom, top).padded(0.05);
+    let y_ticks = y_probe.ticks(((bottom - top) / 45.0).max(3.0) as usize);
+    let left = 34.0 + max_label_width(&y_ticks, TICK_SIZE) + 10.0;
+    let area = Area {
+        left,
+        top,
+        right: width - 24.0,
+        bottom,
+    };
+    let y = Axis { ..y_probe };
+    let x = Axis::new(AxisKind::Linear, xb.0, xb.1, area.left, area.right);
+    let x_ticks = thin_x_ticks(x.ticks((area.width() / 90.0).max(2.0) as usize), &x);
+
+    let mut svg = Svg::new(width, height);
+    layout::title(&mut svg, width, &chart.title);
+    if !entries.is_empty() {
+        legend(&mut svg, &entries, 40.0, 36.0, width - 80.0);
+    }
+
+    let shade_labels = draw_shading(&mut svg, chart, &x, area);
+    let axes = AxisDraw {
+        area,
+        x: &x,
+        y: &y,
+        x_ticks: &x_ticks,
+        y_ticks: &y_ticks,
+        x_labels: true,
+        y_labels: true,
+        tick_size: TICK_SIZE,
+    };
+    axes.grid(&mut svg);
+
+    let mut non_positive = 0;
+    for (i, s) in chart.series.iter().enumerate() {
+        let t = trace(&s.points, &x, &y);
+        non_positive += t.non_positive;
+        if t.d.is_empty() {
+            continue;
+        }
+        let mut attrs = format!(
+            "class=\"series\" data-label=\"{}\"",
+            super::svg::escape(&s.label)
+        );
+        if let Some(dash) = series_dash(i) {
+            attrs.push_str(&format!(" stroke-dasharray=\"{dash}\""));
+        }
+        svg.path(&t.d, series_color(i), 1.8, &attrs);
+        if t.points.len() <= 40 {
+            for (px, py) in &t.points {
+                svg.circle(*px, *py, 2.6, series_color(i));
+            }
+        }
+    }
+    let shade_label_lines = shade_labels.iter().map(|l| l.1 + 1).max().unwrap_or(0);
+    draw_ref_lines(
+        &mut svg,
+        &chart.h_lines,
+        &chart.v_lines,
+        &x,
+        &y,
+        area,
+        shade_label_lines,
+    );
+    draw_shade_labels(&mut svg, &shade_labels, area);
+    axes.axes(&mut svg);
+    axis_labels(
+        &mut svg,
+        area,
+        (&chart.x_label, &chart.y_label),
+        18.0,
+        height,
+    );
+    if non_positive > 0 {
+        note(
+            &mut svg,
+            area.right,
+            height - 12.0,
+            &format!("{non_positive} values ≤ 0 not shown (log scale)"),
+        );
+    }
+    svg.finish()
+}
+
+/// A small muted note at the bottom right.
+fn note(svg: &mut Svg, right: f64, y: f64, text: &str) {
+    svg.text(
+        right,
+        y,
+        text,
+        TextStyle::new(SMALL_SIZE, Anchor::End, "note").fill(MUTED),
+    );
+}
+
+/// A shade label placed at the top of the plot area: left x, line number, text.
+type ShadeLabel<'a> = (f64, usize, &'a str);
+
+/// Draws the shaded x ranges and places their labels at the top of the plot
+/// area (drawn later, over the lines); a label that would overlap an earlier
+/// one moves down a line.
+fn draw_shading<'a>(
+    svg: &mut Svg,
+    chart: &'a LineChart,
+    x: &Axis,
+    area: Area,
+) -> Vec<ShadeLabel<'a>> {
+    let mut placed: Vec<(f64, f64, usize)> = Vec::new();
+    let mut labels = Vec::new();
+    for r in &chart.shaded {
+        let (Some(a), Some(b)) = (x.map_clamped(r.start), x.map_clamped(r.end)) else {
+            continue;
+        };
+        let (a, b) = (a.min(b), a.max(b));
+        svg.rect(
+            a,
+            area.top,
+            b - a,
+            area.height(),
+            SHADE_FILL,
+            &format!(
+                "class=\"shade\" data-start=\"{}\" data-end=\"{}\"",
+                r.start, r.end
+            ),
+        );
+        if r.label.is_empty() {
+            continue;
+        }
+        let w = text_width(&r.label, SMALL_SIZE);
+        // Centre over the band, but keep inside the plot area.
+        let mut lx = ((a + b) / 2.0 - w / 2.0).max(area.left + 3.0);
+        lx = lx.min(area.right - w - 3.0);
+        let mut line = 0;
+        while placed
+            .iter()
+            .any(|&(s, e, l)| l == line && lx < e + 6.0 && lx + w > s - 6.0)
+        {
+            line += 1;
+        }
+        placed.push((lx, lx + w, line));
+        labels.push((lx, line, r.label.as_str()));
+    }
+    labels
+}
+
+fn draw_shade_labels(svg: &mut Svg, labels: &[ShadeLabel<'_>], area: Area) {
+    for &(lx, line, text) in labels {
+        svg.text(
+            lx,
+            area.top + 14.0 + 14.0 * line as f64,
+            text,
+            TextStyle::new(SMALL_SIZE, Anchor::Start, "shade-label")
+                .fill(SHADE_INK)
+                .halo(),
+        );
+    }
+}
+
+/// Dashed reference lines with labels: horizontal labels at the right end just
+/// above the line, vertical labels near the top beside the line.
+fn draw_ref_lines(
+    svg: &mut Svg,
+    h_lines: &[RefLine],
+    v_lines: &[RefLine],
+    x: &Axis,
+    y: &Axis,
+    area: Area,
+    shade_label_lines: usize,
+) {
+    for r in h_lines {
+        let Some(py) = y.map(r.value) else { continue };
+        svg.line(
+            area.left,
+            py,
+            area.right,
+            py,
+            REF_INK,
+            1.2,
+            "class=\"ref-line\" stroke-dasharray=\"6 4\"",
+        );
+        if !r.label.is_empty() {
+            let ly = if py - 5.0 < area.top + 12.0 {
+                py + 14.0
+            } else {
+                py - 5.0
+            };
+            svg.text(
+                area.right - 5.0,
+                ly,
+                &r.label,
+                TextStyle::new(SMALL_SIZE, Anchor::End, "ref-label")
+                    .fill(REF_INK)
+                    .halo(),
+            );
+        }
+    }
+    for r in v_lines {
+        let Some(px) = x.map(r.value) else { continue };
+        svg.line(
+            px,
+            area.top,
+            px,
+            area.bottom,
+            REF_INK,
+            1.2,
+            "class=\"ref-line\" stroke-dasharray=\"6 4\"",
+        );
+        if !r.label.is_empty() {
+            let w = text_width(&r.label, SMALL_SIZE);
+            let ly = area.top + 14.0 + 14.0 * shade_label_lines as f64;
+            let (lx, anchor) = if px + 5.0 + w < area.right {
+                (px + 5.0, Anchor::Start)
+            } else {
+                (px - 5.0, Anchor::End)
+            };
+            svg.text(
+                lx,
+                ly,
+                &r.label,
+                TextStyle::new(SMALL_SIZE, anchor, "ref-label")
+                    .fill(REF_INK)
+                    .halo(),
+            );
+        }
+    }
+}
+
+/// Draws singular values against their index (1-based) on a log y axis, with
+/// a dashed vertical line at the effective rank.
+///
+/// Zero, negative and non-finite values cannot be placed on a log axis; they
+/// are left out and counted in a note. Returns a "no data" plot when no value
+/// is positive and finite.
+pub fn spectrum_plot(spectrum: &Spectrum) -> String {
+    let mut chart = LineChart::new(
+        spectrum.title.clone(),
+        "index of singular value (1 = largest)",
+        "singular value (weight units)",
+    );
+    chart.width = spectrum.width;
+    chart.height = spectrum.height;
+    chart.y_scale = Scale::Log10;
+    chart.series.push(super::Series::new(
+        "singular values",
+        spectrum
+            .singular_values
+            .iter()
+            .enumerate()
+            .map(|(i, &s)| ((i + 1) as f64, s))
+            .collect(),
+    ));
+    if let Some(r) = spectrum.effective_rank.filter(|r| r.is_finite()) {
+        chart.v_lines.push(RefLine::new(
+            r,
+            format!("effective rank {}", format_value(r, 3)),
+        ));
+    }
+    line_chart(&chart)
+}
+
+/// Draws one small line panel per entry, sharing the x range; one column for
+/// up to four panels, two columns beyond. Each panel has its own y range
+/// (components differ in scale) with three or so ticks; x tick labels only
+/// under the bottom panel of each column. Returns a "no data" plot when no
+/// panel has a finite point.
+pub fn small_multiples(m: &SmallMultiples) -> String {
+    let width = f64::from(m.width.max(200));
+    let n = m.panels.len();
+    let finite = |p: &&(f64, f64)| p.0.is_finite() && p.1.is_finite();
+    let Some(xb) = bounds(
+        m.panels
+            .iter()
+            .flat_map(|p| p.points.iter().filter(finite).map(|p| p.0)),
+    ) else {
+        return no_data(width, f64::from(super::DEFAULT_HEIGHT), &m.title);
+    };
+    let cols = if n <= 4 { 1 } else { 2 };
+    let rows = n.div_ceil(cols);
+    let panel_h = if cols == 1 { 96.0 } else { 88.0 };
+    let title_h = 16.0;
+    let gap = 10.0;
+    let top0 = 42.0;
+    let height = top0 + rows as f64 * (panel_h + title_h + gap) - gap + 52.0;
+
+    // Per-panel y axes; the shared left margin must fit the widest tick label.
+    let y_axes: Vec<Option<(f64, f64)>> = m
+        .panels
+        .iter()
+        .map(|p| bounds(p.points.iter().filter(finite).map(|p| p.1)))
+        .collect();
+    let probe_ticks: Vec<Vec<(f64, String)>> = y_axes
+        .iter()
+        .map(|b| match b {
+            Some((lo, hi)) => Axis::new(AxisKind::Linear, *lo, *hi, panel_h, 0.0)
+                .padded(0.08)
+                .ticks(3),
+            None => Vec::new(),
+        })
+        .collect();
+    let tick_w = probe_ticks
+        .iter()
+        .map(|t| max_label_width(t, TICK_SIZE))
+        .fold(0.0, f64::max);
+    let col_gap = 16.0;
+    let left0 = 34.0 + tick_w + 10.0;
+    let inner_w = width - left0 - 20.0;
+    let col_w = (inner_w - (cols as f64 - 1.0) * (col_gap + tick_w + 10.0)) / cols as f64;
+
+    let mut svg = Svg::new(width, height);
+    layout::title(&mut svg, width, &m.title);
+    let mut last_area = None;
+    for (i, panel) in m.panels.iter().enumerate() {
+        let (c, r) = (i / rows, i % rows);
+        let left = left0 + c as f64 * (col_w + col_gap + tick_w + 10.0);
+        let ptop = top0 + r as f64 * (panel_h + title_h + gap) + title_h;
+        let area = Area {
+            left,
+            top: ptop,
+            right: left + col_w,
+            bottom: ptop + panel_h,
+        };
+        svg.open_group("class=\"panel\"");
+        svg.text(
+            area.left,
+            area.top - 4.0,
+            &panel.title,
+            TextStyle::new(SMALL_SIZE + 0.5, Anchor::Start, "panel-title").bold(),
+        );
+        let x = Axis::new(AxisKind::Linear, xb.0, xb.1, area.left, area.right);
+        let x_ticks = thin_x_ticks(x.ticks((area.width() / 90.0).max(2.0) as usize), &x);
+        let bottom_of_column = r == rows - 1 || i == n - 1;
+        let (y, y_ticks) = match y_axes[i] {
+            Some((lo, hi)) => {
+                let y = Axis::new(AxisKind::Linear, lo, hi, area.bottom, area.top).padded(0.08);
+                (y, y.ticks(3))
+            }
+            None => (
+                Axis::new(AxisKind::Linear, 0.0, 1.0, area.bottom, area.top),
+                Vec::new(),
+            ),
+        };
+        let axes = AxisDraw {
+            area,
+            x: &x,
+            y: &y,
+            x_ticks: &x_ticks,
+            y_ticks: &y_ticks,
+            x_labels: bottom_of_column,
+            y_labels: true,
+            tick_size: TICK_SIZE,
+        };
+        axes.grid(&mut svg);
+        if let Some(zero) = y.map(0.0).filter(|z| *z > area.top && *z < area.bottom) {
+            svg.line(
+                area.left,
+                zero,
+                area.right,
+                zero,
+                "#b0b0b0",
+                1.0,
+                "class=\"zero\"",
+            );
+        }
+        let t = trace(&panel.points, &x, &y);
+        if t.d.is_empty() {
+            svg.text(
+                (area.left + area.right) / 2.0,
+                (area.top + area.bottom) / 2.0 + 4.0,
+                "no data",
+                TextStyle::new(SMALL_SIZE, Anchor::Middle, "no-data").fill(MUTED),
+            );
+        } else {
+            svg.path(&t.d, series_color(0), 1.5, "class=\"series\"");
+        }
+        axes.axes(&mut svg);
+        svg.close_group();
+        if last_area.is_none() || r == rows - 1 {
+            last_area = Some(area);
+        }
+    }
+    if let Some(a) = last_area {
+        let whole = Area {
+            left: left0,
+            top: top0,
+            right: width - 20.0,
+            bottom: a.bottom,
+        };
+        axis_labels(&mut svg, whole, (&m.x_label, ""), 18.0, height);
+        if !m.y_label.is_empty() {
+            svg.text(
+                18.0,
+                (top0 + a.bottom) / 2.0,
+                &m.y_label,
+                TextStyle::new(LABEL_SIZE, Anchor::Middle, "y-label").rotate(-90.0),
+            );
+        }
+    }
+    svg.finish()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::{
+        LineChart, Panel, RefLine, Scale, Series, SmallMultiples, Spectrum, XRange,
+    };
+    use super::*;
+    use roxmltree::Document;
+
+    fn parse(svg: &str) -> Document<'_> {
+        Document::parse(svg).unwrap_or_else(|e| panic!("not well-formed XML: {e}\n{svg}"))
+    }
+
+    fn with_class<'a>(doc: &'a Document<'a>, class: &str) -> Vec<roxmltree::Node<'a, 'a>> {
+        doc.descendants()
+            .filter(|n| n.attribute("class") == Some(class))
+            .collect()
+    }
+
+    fn texts(doc: &Document<'_>, class: &str) -> Vec<String> {
+        with_class(doc, class)
+            .iter()
+            .map(|n| n.text().unwrap_or("").to_string())
+            .collect()
+    }
+
+    fn attr(n: &roxmltree::Node<'_, '_>, name: &str) -> f64 {
+        n.attribute(name)
+            .and_then(|v| v.parse().ok())
+            .unwrap_or_else(|| panic!("attribute {name} missing on {n:?}"))
+    }
+
+    /// Invented data: a smooth curve over 300 trained rows, then noise-like
+    /// values over an untrained tail up to 512.
+    fn norms_chart() -> LineChart {
+        let mut c = LineChart::new(
+            "Row norms",
+            "position (row index)",
+            "L2 norm (weight units)",
+        );
+        c.series.push(Series::from_values(
+            "row norm",
+            0.0,
+            &(0..512)
+                .map(|i| {
+                    if i < 300 {
+                        1.0 + (i as f64 / 40.0).sin() * 0.1
+                    } else {
+                        0.45
+                    }
+                })
+                .collect::<Vec<_>>(),
+        ));
+        c.series.push(Series::from_values(
+            "smoothed",
+            0.0,
+            &(0..512)
+                .map(|i| 0.9 + i as f64 / 2000.0)
+                .collect::<Vec<_>>(),
+        ));
+        c.shaded.push(XRange {
+            start: 300.0,
+            end: 512.0,
+            label: "untrained 300–512".into(),
+        });
+        c.h_lines.push(RefLine::new(0.4525, "init noise level σ√d"));
+        c
+    }
+
+    #[test]
+    fn line_chart_has_title_axis_labels_legend_and_one_path_per_series() {
+        let svg = line_chart(&norms_chart());
+        let doc = parse(&svg);
+        assert_eq!(texts(&doc, "title"), vec!["Row norms"]);
+        assert_eq!(texts(&doc, "x-label"), vec!["position (row index)"]);
+        assert_eq!(texts(&doc, "y-label"), vec!["L2 norm (weight units)"]);
+        assert_eq!(with_class(&doc, "series").len(), 2);
+        assert_eq!(texts(&doc, "legend-label"), vec!["row norm", "smoothed"]);
+        assert_eq!(texts(&doc, "ref-label"), vec!["init noise level σ√d"]);
+        assert_eq!(texts(&doc, "shade-label"), vec!["untrained 300–512"]);
+        assert!(texts(&doc, "tick-x").contains(&"500".to_string()));
+    }
+
+    #[test]
+    fn overlong_title_is_shrunk_then_cut_but_kept_whole_in_svg_title() {
+        let long = "a very long title ".repeat(10);
+        let mut c = norms_chart();
+        c.title = long.clone();
+        let svg = line_chart(&c);
+        let doc = parse(&svg);
+        let t = &with_class(&doc, "title")[0];
+        assert_eq!(attr(t, "font-size"), 12.0);
+        let shown = t.text().unwrap_or("");
+        assert!(shown.ends_with('…') && shown.len() < long.len(), "{shown}");
+        let full = doc
+            .descendants()
+            .find(|n| n.has_tag_name("title"))
+            .and_then(|n| n.text());
+        assert_eq!(full, Some(long.as_str()));
+    }
+
+    #[test]
+    fn single_series_has_no_legend() {
+        let mut c = norms_chart();
+        c.series.truncate(1);
+        let svg = line_chart(&c);
+        let doc = parse(&svg);
+        assert!(with_class(&doc, "legend-label").is_empty());
+        assert_eq!(with_class(&doc, "series").len(), 1);
+    }
+
+    #[test]
+    fn shaded_range_sits_between_the_pixels_of_its_ends() {
+        let svg = line_chart(&norms_chart());
+        let doc = parse(&svg);
+        let area = &with_class(&doc, "plot-area")[0];
+        let (left, w) = (attr(area, "x"), attr(area, "width"));
+        // The x axis spans the data exactly: 0 .. 512 (the shaded end), so
+        // pixel(v) = left + v / 512 * width (linear mapping, by definition).
+        let px = |v: f64| left + v / 512.0 * w;
+        let shade = &with_class(&doc, "shade")[0];
+        assert!((attr(shade, "x") - px(300.0)).abs() < 0.01);
+        assert!((attr(shade, "x") + attr(shade, "width") - px(512.0)).abs() < 0.02);
+    }
+
+    #[test]
+    fn crowded_band_labels_stack_and_vertical_labels_go_below_them() {
+        let mut c = LineChart::new("t", "x", "y");
+        c.series.push(Series::from_values("a", 0.0, &[1.0; 100]));
+        for (a, b) in [(10.0, 14.0), (15.0, 19.0), (60.0, 90.0)] {
+            c.shaded.push(XRange {
+                start: a,
+                end: b,
+                label: format!("untrained {a}–{b}"),
+            });
+        }
+        c.v_lines.push(RefLine::new(80.0, "declared 80"));
+        let svg = line_chart(&c);
+        let doc = parse(&svg);
+        let ys: Vec<f64> = with_class(&doc, "shade-label")
+            .iter()
+            .map(|n| attr(n, "y"))
+            .collect();
+        // The two neighbouring labels cannot share a line; the far one can.
+        assert!(ys[1] > ys[0], "{ys:?}");
+        assert_eq!(ys[2], ys[0]);
+        let v_label = with_class(&doc, "ref-label")
+            .into_iter()
+            .find(|n| n.text() == Some("declared 80"))
+            .expect("label");
+        assert!(attr(&v_label, "y") > ys[1]);
+        // Labels are drawn after (over) every band.
+        let order: Vec<&str> = doc
+            .descendants()
+            .filter_map(|n| n.attribute("class"))
+            .filter(|c| *c == "shade" || *c == "shade-label")
+            .collect();
+        assert_eq!(
+            order,
+            vec![
+                "shade",
+                "shade",
+                "shade",
+                "shade-label",
+                "shade-label",
+                "shade-label"
+            ]
+        );
+    }
+
+    #[test]
+    fn log_scale_ticks_are_powers_of_ten_at_log_spaced_pixels() {
+        let mut c = LineChart::new("decay", "index", "value");
+        c.y_scale = Scale::Log10;
+        c.series.push(Series::from_values(
+            "v",
+            1.0,
+            &(0..60)
+                .map(|i| 10f64.powf(1.0 - i as f64 / 12.0))
+                .collect::<Vec<_>>(),
+        ));
+        let svg = line_chart(&c);
+        let doc = parse(&svg);
+        let labels = texts(&doc, "tick-y");
+        // Data run from 10¹ down to 10^(1 − 59/12) ≈ 1.2×10⁻⁴.
+        assert_eq!(labels, vec!["10⁻⁴", "10⁻³", "10⁻²", "10⁻¹", "10⁰", "10¹"]);
+        // Equal ratios must be equal distances: successive decades are spaced equally.
+        let ys: Vec<f64> = with_class(&doc, "tick-y")
+            .iter()
+            .map(|n| attr(n, "y"))
+            .collect();
+        let d: Vec<f64> = ys.windows(2).map(|w| w[0] - w[1]).collect();
+        for w in d.windows(2) {
+            assert!((w[0] - w[1]).abs() < 0.02, "{d:?}");
+        }
+    }
+
+    #[test]
+    fn log_scale_counts_values_it_cannot_show() {
+        let mut c = LineChart::new("t", "x", "y");
+        c.y_scale = Scale::Log10;
+        c.series.push(Series::new(
+            "a",
+            vec![(0.0, 1.0), (1.0, 0.0), (2.0, -3.0), (3.0, 10.0)],
+        ));
+        let doc_s = line_chart(&c);
+        let doc = parse(&doc_s);
+        assert_eq!(
+            texts(&doc, "note"),
+            vec!["2 values ≤ 0 not shown (log scale)"]
+        );
+    }
+
+    #[test]
+    fn nan_breaks_the_line_and_empty_input_says_no_data() {
+        let mut c = LineChart::new("gap", "x", "y");
+        c.series.push(Series::new(
+            "a",
+            vec![
+                (0.0, 1.0),
+                (1.0, 2.0),
+                (2.0, f64::NAN),
+                (3.0, 1.0),
+                (4.0, 0.5),
+            ],
+        ));
+        let svg = line_chart(&c);
+        let doc = parse(&svg);
+        let d = with_class(&doc, "series")[0]
+            .attribute("d")
+            .unwrap_or("")
+            .to_string();
+        assert_eq!(d.matches('M').count(), 2, "{d}");
+
+        let empty = LineChart::new("nothing", "x", "y");
+        let svg = line_chart(&empty);
+        let doc = parse(&svg);
+        assert_eq!(texts(&doc, "no-data"), vec!["no data"]);
+        let mut all_nan = LineChart::new("nan", "x", "y");
+        all_nan.series.push(Series::new(
+            "a",
+            vec![(f64::NAN, 1.0), (1.0, f64::INFINITY)],
+        ));
+        assert!(line_chart(&all_nan).contains("no data"));
+    }
+
+    #[test]
+    fn long_lines_are_reduced_without_losing_extremes() {
+        let ys: Vec<f64> = (0..100_000).map(|i| ((i * 7919) % 1000) as f64).collect();
+        let mut c = LineChart::new("long", "x", "y");
+        c.series.push(Series::from_values("a", 0.0, &ys));
+        let svg = line_chart(&c);
+        assert!(svg.len() < 200_000, "{} bytes", svg.len());
+        let doc = parse(&svg);
+        assert!(texts(&doc, "tick-y").contains(&"1000".to_string()));
+    }
+
+    #[test]
+    fn spectrum_marks_effective_rank_on_log_axis() {
+        let s = Spectrum {
+            title: "Spectrum".into(),
+            singular_values: (0..64)
+                .map(|i| 50.0 * 0.85f64.powi(i))
+                .chain([0.0])
+                .collect(),
+            effective_rank: Some(12.34),
+            width: 800,
+            height: 400,
+        };
+        let svg = spectrum_plot(&s);
+        let doc = parse(&svg);
+        assert_eq!(texts(&doc, "ref-label"), vec!["effective rank 12.3"]);
+        assert!(texts(&doc, "tick-y").iter().all(|l| l.starts_with("10")));
+        assert_eq!(
+            texts(&doc, "note"),
+            vec!["1 values ≤ 0 not shown (log scale)"]
+        );
+        // The marker sits at x = 12.34 on an axis spanning the drawable indices
+        // 1 .. 64 (the zero at index 65 cannot be shown and is left out).
+        let area = &with_class(&doc, "plot-area")[0];
+        let want = attr(area, "x") + (12.34 - 1.0) / 63.0 * attr(area, "width");
+        let line = &with_class(&doc, "ref-line")[0];
+        assert!((attr(line, "x1") - want).abs() < 0.01);
+    }
+
+    #[test]
+    fn small_multiples_draw_one_panel_each_with_shared_x_labels_once() {
+        let panels: Vec<Panel> = (0..6)
+            .map(|k| Panel {
+                title: format!("component {}", k + 1),
+                points: (0..200)
+                    .map(|i| (i as f64, ((k + 1) as f64 * i as f64 / 60.0).cos()))
+                    .collect(),
+            })
+            .collect();
+        let m = SmallMultiples {
+            title: "Leading components".into(),
+            x_label: "position".into(),
+            y_label: "component value".into(),
+            panels,
+            width: 800,
+        };
+        let svg = small_multiples(&m);
+        let doc = parse(&svg);
+        assert_eq!(with_class(&doc, "panel").len(), 6);
+        assert_eq!(with_class(&doc, "series").len(), 6);
+        assert_eq!(texts(&doc, "panel-title")[5], "component 6");
+        assert_eq!(texts(&doc, "x-label"), vec!["position"]);
+        // Two columns of three: x tick labels only under the two bottom panels.
+        let bottom_panels = with_class(&doc, "panel")
+            .iter()
+            .filter(|p| {
+                p.descendants()
+                    .any(|n| n.attribute("class") == Some("tick-x"))
+            })
+            .count();
+        assert_eq!(bottom_panels, 2);
+    }
+
+    #[test]
+    fn small_multiples_without_data_say_so() {
+        let m = SmallMultiples {
+            title: "none".into(),
+            x_label: "x".into(),
+            y_label: "y".into(),
+            panels: vec![],
+            width: 800,
+        };
+        assert!(small_multiples(&m).contains(">no data<"));
+    }
+}
