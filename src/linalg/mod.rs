@@ -242,9 +242,8 @@ fn gram_decomposition(
     if k_large > 0 {
         let v = eigvecs.slice(s![.., ..k_large]);
         let mv = times(m, v);
-        for j in 0..k_large {
-            left.column_mut(j)
-                .assign(&mv.column(j).mapv(|x| x / sigma[j]));
+        for (j, &sj) in sigma.iter().enumerate().take(k_large) {
+            left.column_mut(j).assign(&mv.column(j).mapv(|x| x / sj));
             right.column_mut(j).assign(&v.column(j));
         }
     }
