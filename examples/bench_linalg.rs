@@ -41,7 +41,11 @@ fn write_npy(path: &std::path::Path, t: &Array2<f64>) -> std::io::Result<()> {
     header.push(b'\n');
     let mut f = std::io::BufWriter::new(std::fs::File::create(path)?);
     f.write_all(b"\x93NUMPY\x01\x00")?;
-    f.write_all(&u16::try_from(header.len()).unwrap_or(u16::MAX).to_le_bytes())?;
+    f.write_all(
+        &u16::try_from(header.len())
+            .unwrap_or(u16::MAX)
+            .to_le_bytes(),
+    )?;
     f.write_all(&header)?;
     for v in t.iter() {
         f.write_all(&v.to_le_bytes())?;

@@ -27,6 +27,46 @@ pub enum Command {
     /// Example: posaudit scan path/to/model.safetensors
     ///          posaudit scan path/to/sharded-folder --json
     Scan(ScanArgs),
+    /// Analyse every position table and write the findings report.
+    ///
+    /// Examples:
+    ///   posaudit audit model.safetensors                      summary on the terminal
+    ///   posaudit audit ckpt/ --out audit-report               report.json, report.md, plots
+    ///   posaudit audit ckpt/ --json --fail-on warning         CI gate: exit 1 on warnings
+    Audit(AuditArgs),
+}
+
+/// The level at which `--fail-on` makes the exit code 1.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum FailOn {
+    /// Exit 1 when any warning or error finding exists.
+    Warning,
+    /// Exit 1 only when an error finding exists.
+    Error,
+}
+
+/// Arguments of `audit`.
+#[derive(Debug, clap::Args)]
+pub struct AuditArgs {
+    /// A checkpoint file, or a folder holding one.
+    #[arg(value_name = "PATH")]
+    pub path: PathBuf,
+    /// Treat this tensor as a position table even if the detector would not (repeatable).
+    #[arg(long = "table", value_name = "NAME")]
+    pub tables: Vec<String>,
+    /// Write report.json, report.md and the SVG plots it links into this folder (created
+    /// if needed; files are replaced atomically).
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
+    /// Print the JSON document (schema posaudit/audit/v1) on stdout and nothing else there.
+    #[arg(long)]
+    pub json: bool,
+    /// Exit with code 1 when a finding at or above this level exists (for CI gates).
+    #[arg(long, value_name = "LEVEL", value_enum)]
+    pub fail_on: Option<FailOn>,
+    /// Threads for the linear algebra (default 1: the fastest on small shared machines).
+    #[arg(long, value_name = "N", default_value_t = 1)]
+    pub threads: usize,
 }
 
 /// Arguments of `scan`.
@@ -47,6 +87,16 @@ pub struct ScanArgs {
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn fail_on_takes_warning_or_error() {
+        let cli = Cli::try_parse_from(["posaudit", "audit", "m", "--fail-on", "warning"]).unwrap();
+        let Command::Audit(args) = cli.command else {
+            panic!("audit expected")
+        };
+        assert_eq!(args.fail_on, Some(FailOn::Warning));
+        assert!(Cli::try_parse_from(["posaudit", "audit", "m", "--fail-on", "sometimes"]).is_err());
+    }
+
     use super::*;
     use clap::CommandFactory;
 
@@ -67,7 +117,9 @@ mod tests {
             "b",
         ])
         .unwrap();
-        let Command::Scan(args) = cli.command;
+        let Command::Scan(args) = cli.command else {
+            panic!("scan expected")
+        };
         assert_eq!(args.tables, vec!["a", "b"]);
     }
 }

@@ -279,6 +279,9 @@ impl ConfigHints {
         if let Some(h) = &self.relative_buckets {
             parts.push(format!("{} {}", h.key, h.value));
         }
+        if let Some(h) = &self.relative_max_distance {
+            parts.push(format!("{} {}", h.key, h.value));
+        }
         if let Some(h) = &self.image_size {
             parts.push(format!("{} {}", h.key, h.value));
         }

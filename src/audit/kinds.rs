@@ -20,8 +20,12 @@ fn hint_usize(h: &Option<crate::config::Hint<u64>>) -> Option<usize> {
 /// Audits a patch-position grid.
 pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigHints>) {
     let hints = GridHints {
-        image_size: config.and_then(|c| hint_usize(&c.image_size)).map(|s| (s, s)),
-        patch_size: config.and_then(|c| hint_usize(&c.patch_size)).map(|s| (s, s)),
+        image_size: config
+            .and_then(|c| hint_usize(&c.image_size))
+            .map(|s| (s, s)),
+        patch_size: config
+            .and_then(|c| hint_usize(&c.patch_size))
+            .map(|s| (s, s)),
         extra_rows: None,
     };
     let Some(layout) = grid::infer_grid(table.nrows(), &audit.shape, &hints) else {
@@ -30,7 +34,10 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
             code: "grid-layout-unknown",
             severity: Severity::Warning,
             positions: None,
-            message: format!("No square grid (with 0-8 extra rows) or config image/patch size fits {} rows.", table.nrows()),
+            message: format!(
+                "No square grid (with 0-8 extra rows) or config image/patch size fits {} rows.",
+                table.nrows()
+            ),
             evidence: format!("shape {:?}", audit.shape),
             limits: "Non-square grids need image_size and patch_size in config.json.".into(),
         });
@@ -38,9 +45,14 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
     };
     let a = grid::analyze_grid(table.view(), &layout);
     let extra = layout.extra_rows;
-    let mut verdict = format!("{}x{} grid + {} extra row(s)", layout.height, layout.width, extra);
-    if let Some(fixed) = &a.fixed_sincos {
-        if fixed.matches {
+    let mut verdict = format!(
+        "{}x{} grid + {} extra row(s)",
+        layout.height, layout.width, extra
+    );
+    if let Some(fixed) = &a.fixed_sincos
+        && fixed.matches
+    {
+        {
             verdict = format!(
                 "{verdict}; fixed 2-D sin-cos grid (first half of the columns encodes the {} index, max error {:.2e})",
                 fixed.first_half_axis, fixed.max_abs_error
@@ -62,7 +74,10 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
         }
     }
     if let Some(s) = &a.separability {
-        verdict = format!("{verdict}; additive row+column model explains {:.0}%", 100.0 * s.additive);
+        verdict = format!(
+            "{verdict}; additive row+column model explains {:.0}%",
+            100.0 * s.additive
+        );
     }
     if a.odd_patch_count > 0 {
         let rows: Vec<usize> = a.odd_patches.iter().map(|p| p.table_row).collect();
@@ -95,8 +110,12 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
     let lower = audit.name.to_ascii_lowercase();
     let swin = lower.contains("relative_position_bias_table");
     let a = if swin {
-        let window = config.and_then(|c| hint_usize(&c.window_size)).map(|w| (w, w));
-        let init = config.and_then(|c| c.initializer_range.as_ref().map(|h| h.value)).or(Some(0.02));
+        let window = config
+            .and_then(|c| hint_usize(&c.window_size))
+            .map(|w| (w, w));
+        let init = config
+            .and_then(|c| c.initializer_range.as_ref().map(|h| h.value))
+            .or(Some(0.02));
         relative::analyze_swin(table.view(), window, init)
     } else {
         let bidirectional = if lower.contains("decoder") {
@@ -178,13 +197,21 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
             limits: "A head can legitimately ignore distance; confirm with attention patterns on real inputs.".into(),
         });
     }
-    let decaying = a.head_trends.iter().filter(|h| h.trend.contains("decay")).count();
+    let decaying = a
+        .head_trends
+        .iter()
+        .filter(|h| h.trend.contains("decay"))
+        .count();
     audit.verdict = format!(
         "{} table, {} buckets x {} heads, {}; {} of {} heads decay with distance",
         a.style,
         a.buckets,
         a.heads,
-        if a.bidirectional { "bidirectional" } else { "causal" },
+        if a.bidirectional {
+            "bidirectional"
+        } else {
+            "causal"
+        },
         decaying,
         a.heads
     );
@@ -200,9 +227,13 @@ fn rotary_hints(config: Option<&ConfigHints>, len: usize) -> RotaryHints {
         .and_then(|v| v.as_u64())
         .and_then(|v| usize::try_from(v).ok());
     let head_dim = config.and_then(|c| {
-        hint_usize(&c.head_dim).or_else(|| Some(hint_usize(&c.hidden_size)? / hint_usize(&c.num_heads)?.max(1)))
+        hint_usize(&c.head_dim)
+            .or_else(|| Some(hint_usize(&c.hidden_size)? / hint_usize(&c.num_heads)?.max(1)))
     });
-    let partial = config.and_then(|c| c.partial_rotary_factor.as_ref()).map(|h| h.value).unwrap_or(1.0);
+    let partial = config
+        .and_then(|c| c.partial_rotary_factor.as_ref())
+        .map(|h| h.value)
+        .unwrap_or(1.0);
     let rotary_dim = head_dim
         .map(|h| ((h as f64) * partial).round() as usize)
         .filter(|d| d.div_ceil(2) == len);
@@ -217,7 +248,10 @@ fn rotary_hints(config: Option<&ConfigHints>, len: usize) -> RotaryHints {
 /// Findings and verdict shared by stored and config-derived rotary analyses.
 pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
     let mut findings = Vec::new();
-    let base = a.base.map(|b| format!("{b:.6}")).unwrap_or_else(|| "unknown".into());
+    let base = a
+        .base
+        .map(|b| format!("{b:.6}"))
+        .unwrap_or_else(|| "unknown".into());
     let mut verdict = format!("base {base}, scaling {}", a.scaling);
     if a.scaling != "none" {
         verdict = format!("{verdict} (factor {:.4})", a.factor);
@@ -230,10 +264,15 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
                 r.smoothed.1,
                 r.divided.0,
                 r.divided.1,
-                r.original_context.map(|c| format!("{c:.0}")).unwrap_or_else(|| "unknown".into())
+                r.original_context
+                    .map(|c| format!("{c:.0}"))
+                    .unwrap_or_else(|| "unknown".into())
             )
         } else if let Some(alpha) = a.ntk_alpha {
-            format!("base enlarged by NTK alpha {alpha:.4} from {}", a.original_base.map(|b| format!("{b}")).unwrap_or_default())
+            format!(
+                "base enlarged by NTK alpha {alpha:.4} from {}",
+                a.original_base.map(|b| format!("{b}")).unwrap_or_default()
+            )
         } else {
             format!("factor {:.4}", a.factor)
         };
@@ -247,7 +286,12 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
         });
     }
     if let Some(p) = &a.low_precision {
-        let worst = p.phase_error.iter().map(|e| format!("{:.2} rad at {}", e.radians, e.position)).collect::<Vec<_>>().join(", ");
+        let worst = p
+            .phase_error
+            .iter()
+            .map(|e| format!("{:.2} rad at {}", e.radians, e.position))
+            .collect::<Vec<_>>()
+            .join(", ");
         findings.push(Finding {
             code: "low-precision",
             severity: Severity::Warning,
@@ -264,7 +308,8 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
         && let (Some(ctx), Some(beyond)) = (w.context, w.beyond_context)
         && beyond > 0
     {
-        verdict = format!("{verdict}; {beyond} frequencies never complete a turn within {ctx} tokens");
+        verdict =
+            format!("{verdict}; {beyond} frequencies never complete a turn within {ctx} tokens");
     }
     if let Some(p) = &a.problem {
         findings.push(Finding {
@@ -283,7 +328,9 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
 pub fn rotary(audit: &mut TableAudit, values: ArrayView1<f64>, config: Option<&ConfigHints>) {
     let hints = rotary_hints(config, values.len());
     let lower = audit.name.to_ascii_lowercase();
-    let divisors = lower.contains("rope_freqs") || lower.contains("rope_factors") || lower.contains("rope.freqs") && values.iter().all(|v| *v >= 1.0);
+    let divisors = lower.contains("rope_freqs")
+        || lower.contains("rope_factors")
+        || lower.contains("rope.freqs") && values.iter().all(|v| *v >= 1.0);
     let a = if divisors {
         let base = hints.config_theta.unwrap_or(10000.0);
         rotary::analyze_rope_factors(values, base, &hints)
@@ -302,8 +349,13 @@ pub fn rotary(audit: &mut TableAudit, values: ArrayView1<f64>, config: Option<&C
 pub fn rotary_from_config(config: Option<&ConfigHints>) -> Option<RotaryAnalysis> {
     let c = config?;
     let theta = c.rope_theta.as_ref()?.value;
-    let head_dim = hint_usize(&c.head_dim).or_else(|| Some(hint_usize(&c.hidden_size)? / hint_usize(&c.num_heads)?.max(1)))?;
-    let partial = c.partial_rotary_factor.as_ref().map(|h| h.value).unwrap_or(1.0);
+    let head_dim = hint_usize(&c.head_dim)
+        .or_else(|| Some(hint_usize(&c.hidden_size)? / hint_usize(&c.num_heads)?.max(1)))?;
+    let partial = c
+        .partial_rotary_factor
+        .as_ref()
+        .map(|h| h.value)
+        .unwrap_or(1.0);
     let rotary_dim = ((head_dim as f64) * partial).round() as usize;
     Some(rotary::rotary_from_config(
         theta,
@@ -340,9 +392,13 @@ pub fn position_ids(audit: &mut TableAudit, values: &[i64], table_rows: Option<u
             code: "length-mismatch",
             severity: Severity::Warning,
             positions: None,
-            message: format!("The buffer indexes up to {} but the position table has {rows} rows.", check.length as i64 + check.offset),
+            message: format!(
+                "The buffer indexes up to {} but the position table has {rows} rows.",
+                check.length as i64 + check.offset
+            ),
             evidence: format!("buffer length {}, offset {}", check.length, check.offset),
-            limits: "Indices past the table would fail at run time if this buffer were used.".into(),
+            limits: "Indices past the table would fail at run time if this buffer were used."
+                .into(),
         });
     }
     audit.positions = Some(check.length);

@@ -22,7 +22,9 @@ use crate::analyze::spectrum::Spectrum;
 use crate::analyze::untrained::UntrainedReport;
 use crate::checkpoint::{Checkpoint, TensorInfo};
 use crate::detect::{self, Detected, Kind};
-use crate::report::model::{AUDIT_SCHEMA, AuditReport, CheckpointSummary, Finding, FindingCounts, Severity};
+use crate::report::model::{
+    AUDIT_SCHEMA, AuditReport, CheckpointSummary, Finding, FindingCounts, Severity,
+};
 
 pub use one_d::Profile;
 
@@ -105,43 +107,61 @@ impl TableAudit {
 
 /// Runs the audit of the checkpoint at `path`. `progress` is told about each table as
 /// it starts (name, index, total), for a progress bar.
-pub fn audit(path: &Path, forced: &[String], progress: &mut dyn FnMut(&str, usize, usize)) -> Result<AuditReport, String> {
+pub fn audit(
+    path: &Path,
+    forced: &[String],
+    progress: &mut dyn FnMut(&str, usize, usize),
+) -> Result<AuditReport, String> {
     let ckpt = Checkpoint::open(path).map_err(|e| e.to_string())?;
     audit_opened(&ckpt, forced, progress)
 }
 
 /// [`audit`] for a checkpoint that is already open.
-pub fn audit_opened(ckpt: &Checkpoint, forced: &[String], progress: &mut dyn FnMut(&str, usize, usize)) -> Result<AuditReport, String> {
+pub fn audit_opened(
+    ckpt: &Checkpoint,
+    forced: &[String],
+    progress: &mut dyn FnMut(&str, usize, usize),
+) -> Result<AuditReport, String> {
     detect::check_forced(ckpt, forced)?;
     let detection = detect::detect(ckpt, forced).map_err(|e| e.to_string())?;
     let config = ckpt.config.as_ref();
     let mut tables = Vec::with_capacity(detection.tables.len());
     let mut warnings = ckpt.warnings.clone();
-    // Rows of the first 1-D table, to check position-id buffers against.
-    let table_rows = detection
-        .tables
-        .iter()
-        .filter(|d| matches!(d.kind, Kind::LearnedAbsolute | Kind::FixedSinusoidal))
-        .filter_map(|d| ckpt.tensor(&d.name)?.as_table_dims().map(|x| x.0))
-        .next();
+    // Rows of the 1-D table that shares the longest name prefix with a position-id
+    // buffer (`bert.embeddings.position_ids` ↔ `bert.embeddings.position_embeddings`).
+    let table_rows_for = |ids: &str| -> Option<usize> {
+        detection
+            .tables
+            .iter()
+            .filter(|d| matches!(d.kind, Kind::LearnedAbsolute | Kind::FixedSinusoidal))
+            .max_by_key(|d| common_prefix_parts(ids, &d.name))
+            .filter(|d| common_prefix_parts(ids, &d.name) > 0)
+            .and_then(|d| ckpt.tensor(&d.name)?.as_table_dims().map(|x| x.0))
+    };
     let mut first_rotary: Option<(usize, ndarray::Array1<f64>)> = None;
     let mut rotary_vectors: Vec<(String, ndarray::Array1<f64>)> = Vec::new();
     let total = detection.tables.len();
     for (i, d) in detection.tables.iter().enumerate() {
         progress(&d.name, i, total);
-        let Some(t) = ckpt.tensor(&d.name) else { continue };
+        let Some(t) = ckpt.tensor(&d.name) else {
+            continue;
+        };
         let mut audit = TableAudit::new(ckpt, t, d);
         match d.kind {
             Kind::PositionIds => {
                 let values = ckpt.read_i64(t).map_err(|e| e.to_string())?;
-                kinds::position_ids(&mut audit, values.as_slice().unwrap_or(&[]), table_rows);
+                kinds::position_ids(
+                    &mut audit,
+                    values.as_slice().unwrap_or(&[]),
+                    table_rows_for(&d.name),
+                );
             }
             Kind::RotaryFrequencies => {
                 let values = ckpt.read_f64(t).map_err(|e| e.to_string())?;
                 let flat: ndarray::Array1<f64> = values.iter().copied().collect();
                 rotary_vectors.push((d.name.clone(), flat.clone()));
                 match &first_rotary {
-                    Some((idx, first)) if first == &flat => {
+                    Some((idx, first)) if *first == flat => {
                         let first_audit: &TableAudit = &tables[*idx];
                         audit.verdict = first_audit.verdict.clone();
                         audit.rotary = first_audit.rotary.clone();
@@ -169,14 +189,18 @@ pub fn audit_opened(ckpt: &Checkpoint, forced: &[String], progress: &mut dyn FnM
                 one_d::audit_table(&mut audit, &table, &t.dtype, config, &mut warnings);
             }
         }
-        audit.findings.sort_by(|a, b| b.severity.cmp(&a.severity));
+        audit
+            .findings
+            .sort_by_key(|f| std::cmp::Reverse(f.severity));
         tables.push(audit);
     }
     if rotary_vectors.len() > 1
         && let Some((idx, _)) = first_rotary
     {
-        let views: Vec<(String, ndarray::ArrayView1<f64>)> =
-            rotary_vectors.iter().map(|(n, v)| (n.clone(), v.view())).collect();
+        let views: Vec<(String, ndarray::ArrayView1<f64>)> = rotary_vectors
+            .iter()
+            .map(|(n, v)| (n.clone(), v.view()))
+            .collect();
         let agreement = crate::analyze::rotary::compare_layers(&views);
         if !agreement.identical {
             tables[idx].findings.push(Finding {
@@ -216,6 +240,14 @@ pub fn audit_opened(ckpt: &Checkpoint, forced: &[String], progress: &mut dyn FnM
         warnings,
         summary,
     })
+}
+
+/// Number of leading dotted name parts two tensor names share.
+fn common_prefix_parts(a: &str, b: &str) -> usize {
+    a.split('.')
+        .zip(b.split('.'))
+        .take_while(|(x, y)| x == y)
+        .count()
 }
 
 /// Reads a tensor as a table (rows × last dimension).

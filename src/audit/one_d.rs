@@ -59,7 +59,10 @@ pub fn reserved_rows(config: Option<&ConfigHints>) -> usize {
     let Some(c) = config else { return 0 };
     match c.model_type.as_deref() {
         Some("opt" | "bart" | "mbart" | "blenderbot" | "marian-learned") => 2,
-        Some("roberta" | "xlm-roberta" | "camembert" | "longformer" | "xlm-roberta-xl" | "data2vec-text") => c
+        Some(
+            "roberta" | "xlm-roberta" | "camembert" | "longformer" | "xlm-roberta-xl"
+            | "data2vec-text",
+        ) => c
             .pad_token_id
             .as_ref()
             .and_then(|p| usize::try_from(p.value + 1).ok())
@@ -83,7 +86,12 @@ fn declared_rows(name: &str, config: Option<&ConfigHints>) -> Option<(usize, Str
         _ => 0,
     };
     let why = if offset > 0 {
-        format!("{} {} + {offset} reserved rows ({})", hint.key, hint.value, c.model_type.as_deref().unwrap_or(""))
+        format!(
+            "{} {} + {offset} reserved rows ({})",
+            hint.key,
+            hint.value,
+            c.model_type.as_deref().unwrap_or("")
+        )
     } else {
         format!("{} {}", hint.key, hint.value)
     };
@@ -99,7 +107,10 @@ fn profile(table: &Array2<f64>) -> (Profile, Array2<f64>, Vec<usize>) {
         analysed_rows: n,
         norms: norms::norm_profile(t.view()),
         neighbour_cosine: neighbours::adjacent_cosines(t.view()),
-        locality: neighbours::locality_profile(t.view(), LOCALITY_DISTANCE.min(n.saturating_sub(1))),
+        locality: neighbours::locality_profile(
+            t.view(),
+            LOCALITY_DISTANCE.min(n.saturating_sub(1)),
+        ),
         cosine_matrix: neighbours::cosine_matrix(t.view(), COSINE_MATRIX_SIDE),
         waves: Vec::new(),
         autocorrelation: periodicity::autocorrelation(t.view(), (n / 2).clamp(1, 512)),
@@ -110,11 +121,21 @@ fn profile(table: &Array2<f64>) -> (Profile, Array2<f64>, Vec<usize>) {
 }
 
 fn range_text(r: [usize; 2]) -> String {
-    if r[1] == r[0] + 1 { format!("row {}", r[0]) } else { format!("rows {}..{}", r[0], r[1]) }
+    if r[1] == r[0] + 1 {
+        format!("row {}", r[0])
+    } else {
+        format!("rows {}..{}", r[0], r[1])
+    }
 }
 
 /// Audits one 1-D table (rows × dim) of the given storage type.
-pub fn audit_table(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype, config: Option<&ConfigHints>, warnings: &mut Vec<String>) {
+pub fn audit_table(
+    audit: &mut TableAudit,
+    table: &Array2<f64>,
+    dtype: &Dtype,
+    config: Option<&ConfigHints>,
+    warnings: &mut Vec<String>,
+) {
     let (n, d) = table.dim();
     audit.positions = Some(n);
     audit.dim = Some(d);
@@ -159,7 +180,8 @@ pub fn audit_table(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype, c
         }
         Err(e) => warnings.push(format!("{}: spectrum not computed: {e}", audit.name)),
     }
-    if let Some(b) = &prof.repeated_block {
+    // A period of one row is a run of duplicates, reported as duplicate-rows.
+    if let Some(b) = prof.repeated_block.as_ref().filter(|b| b.period >= 2) {
         audit.findings.push(Finding {
             code: "repeated-block",
             severity: Severity::Info,
@@ -188,8 +210,11 @@ pub fn audit_table(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype, c
     // Zero rows: padding rows are normal in fixed tables and RoBERTa-style learned ones.
     let zero = &prof.hygiene.zero_rows;
     if !zero.is_empty() {
-        let pad = config.and_then(|c| c.pad_token_id.as_ref()).map(|p| p.value);
-        let at_pad = pad.is_some_and(|p| zero.len() == 1 && zero[0] == [p as usize, p as usize + 1]);
+        let pad = config
+            .and_then(|c| c.pad_token_id.as_ref())
+            .map(|p| p.value);
+        let at_pad =
+            pad.is_some_and(|p| zero.len() == 1 && zero[0] == [p as usize, p as usize + 1]);
         audit.findings.push(Finding {
             code: "zero-rows",
             severity: Severity::Info,
@@ -209,10 +234,17 @@ pub fn audit_table(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype, c
         .outliers
         .iter()
         .map(|&i| kept[i])
-        .filter(|r| !audit.untrained.as_ref().is_some_and(|u| u.ranges.iter().any(|x| x[0] <= *r && *r < x[1])))
+        .filter(|r| {
+            !audit
+                .untrained
+                .as_ref()
+                .is_some_and(|u| u.ranges.iter().any(|x| x[0] <= *r && *r < x[1]))
+        })
         .filter(|r| !zero.iter().any(|x| x[0] <= *r && *r < x[1]))
         .collect();
-    if !outliers.is_empty() {
+    // A handful of outliers is informative; a fifth of the rows "out" means the norms
+    // are simply spread (common in trained tables), so say nothing.
+    if !outliers.is_empty() && outliers.len() <= (n / 50).max(1) {
         audit.findings.push(Finding {
             code: "norm-outlier",
             severity: Severity::Info,
@@ -225,11 +257,19 @@ pub fn audit_table(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype, c
     audit.profile = Some(prof);
 }
 
-fn learned(audit: &mut TableAudit, table: &Array2<f64>, kept: &[usize], prof: &Profile, config: Option<&ConfigHints>) {
+fn learned(
+    audit: &mut TableAudit,
+    table: &Array2<f64>,
+    kept: &[usize],
+    prof: &Profile,
+    config: Option<&ConfigHints>,
+) {
     let n_all = audit.positions.unwrap_or(table.nrows());
     let reserved = reserved_rows(config);
     let hints = UntrainedHints {
-        init_std: config.and_then(|c| c.initializer_range.as_ref()).map(|h| h.value),
+        init_std: config
+            .and_then(|c| c.initializer_range.as_ref())
+            .map(|h| h.value),
         reserved_rows: reserved,
         declared_positions: declared_rows(&audit.name, config).map(|x| x.0),
     };
@@ -237,7 +277,11 @@ fn learned(audit: &mut TableAudit, table: &Array2<f64>, kept: &[usize], prof: &P
     // Map analysed-row indices back to table rows when non-finite rows were dropped.
     let to_table = |r: [usize; 2]| -> [usize; 2] {
         let start = kept.get(r[0]).copied().unwrap_or(n_all);
-        let end = if r[1] == 0 { 0 } else { kept.get(r[1] - 1).map(|x| x + 1).unwrap_or(n_all) };
+        let end = if r[1] == 0 {
+            0
+        } else {
+            kept.get(r[1] - 1).map(|x| x + 1).unwrap_or(n_all)
+        };
         [start, end]
     };
     let ev = &report.evidence;
@@ -260,26 +304,41 @@ fn learned(audit: &mut TableAudit, table: &Array2<f64>, kept: &[usize], prof: &P
     for r in &report.ranges {
         let r = to_table(*r);
         let tail = r[1] == n_all;
+        let in_reserved = r[1] <= reserved;
         audit.findings.push(Finding {
             code: if tail { "untrained-tail" } else { "untrained-rows" },
-            severity: Severity::Warning,
+            severity: if in_reserved { Severity::Info } else { Severity::Warning },
             positions: Some(r),
             message: if tail {
                 format!("Positions {}..{} ({} rows) look untrained: training probably never used sequences longer than {}.", r[0], r[1], r[1] - r[0], r[0].saturating_sub(reserved))
+            } else if in_reserved {
+                format!(
+                    "{} looks untrained, as expected: this model family ({}) reserves the first {reserved} rows and never indexes them for real tokens.",
+                    range_text(r),
+                    config.and_then(|c| c.model_type.as_deref()).unwrap_or("?")
+                )
             } else {
-                format!("{} look(s) untrained (never indexed, or only rarely).", range_text(r))
+                format!("{} look untrained: never indexed, or only very rarely.", range_text(r))
             },
             evidence: evidence.clone(),
             limits: limits.into(),
         });
     }
-    for r in &report.fading {
-        let r = to_table(*r);
+    if !report.fading.is_empty() {
+        // One finding for the whole fading stretch, however fragmented the rows are.
+        let pieces: Vec<[usize; 2]> = report.fading.iter().map(|r| to_table(*r)).collect();
+        let r = [pieces[0][0], pieces[pieces.len() - 1][1]];
+        let rows: usize = pieces.iter().map(|p| p[1] - p[0]).sum();
         audit.findings.push(Finding {
             code: "partially-trained",
             severity: Severity::Info,
             positions: Some(r),
-            message: format!("{} move gradually from trained structure towards noise: trained on few sequences that long.", range_text(r)),
+            message: format!(
+                "{rows} rows between {} and {} move gradually from trained structure towards noise ({}): trained on few sequences that long.",
+                r[0],
+                r[1],
+                pieces.iter().take(4).map(|p| range_text(*p)).collect::<Vec<_>>().join(", ")
+            ),
             evidence: evidence.clone(),
             limits: "A fading range is the expected footprint of a length distribution with a thin tail; it is not a defect by itself.".into(),
         });
@@ -295,12 +354,28 @@ fn learned(audit: &mut TableAudit, table: &Array2<f64>, kept: &[usize], prof: &P
             limits: "The rows after the boundary are still trained; they may be less reliable than the rows before it.".into(),
         });
     }
-    let smooth = prof.neighbour_cosine.iter().flatten().copied().collect::<Vec<f64>>();
+    let smooth = prof
+        .neighbour_cosine
+        .iter()
+        .flatten()
+        .copied()
+        .collect::<Vec<f64>>();
     let median_cos = median(&smooth);
     audit.verdict = match report.first {
-        Some(f) => format!("trained rows 0..{}, untrained tail from row {} ({} rows)", to_table([f, f + 1])[0], to_table([f, f + 1])[0], report.count),
-        None if report.count > 0 => format!("{} untrained row(s) outside a tail; the rest trained", report.count),
-        None => format!("all {n_all} rows look trained (median neighbour cosine {})", fmt_opt(median_cos)),
+        Some(f) => format!(
+            "trained rows 0..{}, untrained tail from row {} ({} rows)",
+            to_table([f, f + 1])[0],
+            to_table([f, f + 1])[0],
+            report.count
+        ),
+        None if report.count > 0 => format!(
+            "{} untrained row(s) outside a tail; the rest trained",
+            report.count
+        ),
+        None => format!(
+            "all {n_all} rows look trained (median neighbour cosine {})",
+            fmt_opt(median_cos)
+        ),
     };
     audit.untrained = Some(report);
 }
@@ -331,7 +406,10 @@ fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
     );
     let p = &fit.precision;
     if p.computed_in_low_precision {
-        audit.verdict = format!("sinusoid computed in {}: {describe}", p.best_match.as_deref().unwrap_or("low precision"));
+        audit.verdict = format!(
+            "sinusoid computed in {}: {describe}",
+            p.best_match.as_deref().unwrap_or("low precision")
+        );
         let by_range = p
             .error_by_range
             .iter()
@@ -368,6 +446,7 @@ fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
     } else {
         audit.verdict = format!("exact sinusoid: {describe}");
     }
+    audit.sinusoid = Some(fit);
 }
 
 fn serde_plain<T: Serialize>(v: &T) -> String {
@@ -378,7 +457,11 @@ fn serde_plain<T: Serialize>(v: &T) -> String {
 }
 
 fn fmt_num(x: f64) -> String {
-    if x.fract() == 0.0 && x.abs() < 1e15 { format!("{x:.0}") } else { format!("{x:.6}") }
+    if x.fract() == 0.0 && x.abs() < 1e15 {
+        format!("{x:.0}")
+    } else {
+        format!("{x:.6}")
+    }
 }
 
 fn fmt_opt(x: Option<f64>) -> String {

@@ -4,6 +4,8 @@
 //! the JSON documents are these structs serialised; the terminal summary, the Markdown
 //! report and the SVG plots are renderings of the same structs.
 
+pub mod figures;
+pub mod markdown;
 pub mod model;
 pub mod output;
 pub mod plots;

@@ -9,9 +9,11 @@ use std::path::{Path, PathBuf};
 
 /// Creates `dir` if needed and checks that files can be written in it.
 pub fn prepare_dir(dir: &Path) -> Result<(), String> {
-    fs::create_dir_all(dir).map_err(|e| format!("{}: cannot create output folder: {e}", dir.display()))?;
+    fs::create_dir_all(dir)
+        .map_err(|e| format!("{}: cannot create output folder: {e}", dir.display()))?;
     let probe = dir.join(format!(".posaudit-write-test-{}", std::process::id()));
-    fs::write(&probe, b"").map_err(|e| format!("{}: cannot write in output folder: {e}", dir.display()))?;
+    fs::write(&probe, b"")
+        .map_err(|e| format!("{}: cannot write in output folder: {e}", dir.display()))?;
     let _ = fs::remove_file(&probe);
     Ok(())
 }
@@ -53,7 +55,14 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let out = dir.path().join("nested/out");
         prepare_dir(&out).unwrap();
-        write_report(&out, &[("report.md".into(), b"# r".to_vec()), ("a.svg".into(), b"<svg/>".to_vec())]).unwrap();
+        write_report(
+            &out,
+            &[
+                ("report.md".into(), b"# r".to_vec()),
+                ("a.svg".into(), b"<svg/>".to_vec()),
+            ],
+        )
+        .unwrap();
         let mut names: Vec<String> = fs::read_dir(&out)
             .unwrap()
             .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())

@@ -120,6 +120,77 @@ pub fn scan(report: &ScanReport) -> String {
     out
 }
 
+/// The audit summary for the terminal: one line about the checkpoint, one row per table,
+/// then every warning and error finding.
+pub fn audit(report: &super::model::AuditReport) -> String {
+    let c = &report.checkpoint;
+    let s = &report.summary;
+    let mut out = format!(
+        "{}: {} checkpoint, {} table{}; findings: {} error, {} warning, {} info\n",
+        c.path,
+        c.format,
+        report.tables.len(),
+        if report.tables.len() == 1 { "" } else { "s" },
+        s.error,
+        s.warning,
+        s.info
+    );
+    for w in &report.warnings {
+        let _ = writeln!(out, "warning: {w}");
+    }
+    if !report.tables.is_empty() {
+        out.push('\n');
+        let rows: Vec<Vec<String>> = report
+            .tables
+            .iter()
+            .map(|t| {
+                vec![
+                    t.name.clone(),
+                    t.kind.as_str().to_string(),
+                    shape_str(&t.shape),
+                    t.worst()
+                        .map(|w| w.as_str().to_string())
+                        .unwrap_or_else(|| "ok".into()),
+                    t.verdict.clone(),
+                ]
+            })
+            .collect();
+        out.push_str(&aligned(
+            &["name", "kind", "shape", "worst", "verdict"],
+            &rows,
+        ));
+    }
+    let serious: Vec<String> = report
+        .tables
+        .iter()
+        .flat_map(|t| {
+            t.findings
+                .iter()
+                .filter(|f| f.severity >= super::model::Severity::Warning)
+                .map(move |f| {
+                    let at = f
+                        .positions
+                        .map(|[a, b]| format!(" rows {a}..{b}"))
+                        .unwrap_or_default();
+                    format!(
+                        "{} {}{at} [{}]: {}",
+                        f.severity.as_str(),
+                        f.code,
+                        t.name,
+                        f.message
+                    )
+                })
+        })
+        .collect();
+    if !serious.is_empty() {
+        out.push('\n');
+        for line in serious {
+            let _ = writeln!(out, "{line}");
+        }
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
