@@ -250,7 +250,13 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
     let mut findings = Vec::new();
     let base = a
         .base
-        .map(|b| format!("{b:.6}"))
+        .map(|b| {
+            if (b - b.round()).abs() < 1e-6 * b.abs().max(1.0) {
+                format!("{b:.0}")
+            } else {
+                format!("{b:.4}")
+            }
+        })
         .unwrap_or_else(|| "unknown".into());
     let mut verdict = format!("base {base}, scaling {}", a.scaling);
     if a.scaling != "none" {
