@@ -27,6 +27,10 @@ pub enum Command {
     /// Example: posaudit scan path/to/model.safetensors
     ///          posaudit scan path/to/sharded-folder --json
     Scan(ScanArgs),
+    /// Compare the position tables of two or more checkpoints (steps of one run, or runs).
+    ///
+    /// Example: posaudit compare step-1000 step-2000 step-3000 --out report/
+    Compare(CompareArgs),
 }
 
 /// Arguments of `scan`.
@@ -41,6 +45,26 @@ pub struct ScanArgs {
     #[arg(long = "table", value_name = "NAME")]
     pub tables: Vec<String>,
     /// Print the JSON document (schema posaudit/scan/v1) on stdout and nothing else there.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// Arguments of `compare`.
+#[derive(Debug, clap::Args)]
+pub struct CompareArgs {
+    /// Two or more checkpoints (files or folders, any mix of formats), in order: each is
+    /// compared with the next, and the first with the last when there are three or more.
+    #[arg(value_name = "PATH", num_args = 2.., required = true)]
+    pub paths: Vec<PathBuf>,
+    /// Compare only this tensor (repeatable), treated as a position table even if the
+    /// detector would not. It must exist in at least one checkpoint.
+    #[arg(long = "table", value_name = "NAME")]
+    pub tables: Vec<String>,
+    /// Write report.json, report.md and the SVG plots it links into this folder
+    /// (created if needed; each file written atomically).
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
+    /// Print the JSON document (schema posaudit/compare/v1) on stdout and nothing else there.
     #[arg(long)]
     pub json: bool,
 }
@@ -67,7 +91,20 @@ mod tests {
             "b",
         ])
         .unwrap();
-        let Command::Scan(args) = cli.command;
+        let Command::Scan(args) = cli.command else {
+            panic!("scan expected");
+        };
         assert_eq!(args.tables, vec!["a", "b"]);
+    }
+
+    #[test]
+    fn compare_needs_two_paths() {
+        assert!(Cli::try_parse_from(["posaudit", "compare", "a.safetensors"]).is_err());
+        let cli = Cli::try_parse_from(["posaudit", "compare", "a", "b", "c", "--json"]).unwrap();
+        let Command::Compare(args) = cli.command else {
+            panic!("compare expected");
+        };
+        assert_eq!(args.paths.len(), 3);
+        assert!(args.json && args.out.is_none());
     }
 }

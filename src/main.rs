@@ -43,5 +43,9 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             }
             Ok(ExitCode::SUCCESS)
         }
+        Command::Compare(args) => {
+            emit(&posaudit::compare::run::command(&args)?)?;
+            Ok(ExitCode::SUCCESS)
+        }
     }
 }
