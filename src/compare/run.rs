@@ -127,8 +127,17 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
     }
     if let Some((f, _)) = forced.iter().zip(&seen_forced).find(|(_, s)| !**s) {
         let first = open(&paths[0])?;
-        detect::check_forced(&first, std::slice::from_ref(f))?;
-        return Err(format!("no checkpoint holds a tensor named `{f}`"));
+        let close = detect::closest_names(f, first.tensors.iter().map(|t| t.name.as_str()), 3);
+        let hint = if close.is_empty() {
+            String::new()
+        } else {
+            format!("; closest in the first: `{}`", close.join("`, `"))
+        };
+        return Err(format!(
+            "{}: no tensor named `{f}` in this or any of the other {} checkpoints{hint}",
+            paths[0].display(),
+            paths.len() - 1
+        ));
     }
     let n_ckpt = paths.len();
     let quiet_window = if n_ckpt >= 5 { 2 } else { 1 };

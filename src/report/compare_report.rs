@@ -644,3 +644,90 @@ pub fn render_terminal(report: &CompareReport) -> String {
     }
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::checkpoint::Format;
+
+    fn step(from: usize, to: usize, per_row: bool) -> StepEntry {
+        StepEntry {
+            from,
+            to,
+            change: if per_row { vec![0.0, 1.0, 2.0] } else { vec![] },
+            unchanged: if per_row { vec![[0, 1]] } else { vec![] },
+            subspace_similarity: Some(0.5),
+            rows_compared: 3,
+            shapes: [[3, 2], [3, if per_row { 2 } else { 4 }]],
+            per_row,
+            note: (!per_row).then(|| "widths differ (2 vs 4 columns)".into()),
+            mean_change: per_row.then_some(1.0),
+            median_relative_change: None,
+            unchanged_rows: usize::from(per_row),
+            relative_change: vec![],
+            cosine: vec![],
+            most_moved: vec![],
+            unchanged_detail: vec![],
+            unchanged_tolerance: None,
+            tolerance_dtype: None,
+            noise: None,
+            similarity: None,
+            similarity_unavailable: None,
+        }
+    }
+
+    fn table(name: &str, per_row: bool) -> TableComparison {
+        TableComparison {
+            name: name.into(),
+            kind: Kind::LearnedAbsolute,
+            matched_by: MatchedBy::Name,
+            matches: vec![None, None],
+            missing_from: vec![],
+            steps: vec![step(0, 1, per_row)],
+            first_to_last: None,
+            timeline: None,
+            timeline_unavailable: None,
+            findings: vec![],
+            notes: vec![],
+        }
+    }
+
+    #[test]
+    fn markdown_links_exactly_the_rendered_plots() {
+        // Invented report: one table with a per-row step, one whose widths differ (no
+        // per-row change, so no change plot).
+        let report = CompareReport {
+            schema: COMPARE_SCHEMA,
+            checkpoints: (0..2)
+                .map(|index| CheckpointEntry {
+                    index,
+                    summary: CheckpointSummary {
+                        path: format!("run/step{index}.safetensors"),
+                        format: Format::Safetensors,
+                        files: 1,
+                        tensors: 2,
+                        bytes: 100,
+                    },
+                })
+                .collect(),
+            tables: vec![table("a/b.weight", true), table("wide", false)],
+            warnings: vec![],
+        };
+        let plots = render_plots(&report);
+        let names: Vec<&str> = plots.iter().map(|(n, _)| n.as_str()).collect();
+        assert_eq!(names, vec!["t0-a_b_weight-change.svg"]);
+        let md = render_markdown(&report);
+        let links: Vec<&str> = md
+            .split("](")
+            .skip(1)
+            .map(|p| &p[..p.find(')').unwrap()])
+            .collect();
+        assert_eq!(links, names);
+        assert!(md.contains("widths differ (2 vs 4 columns)"));
+        let text = render_terminal(&report);
+        assert_eq!(text.lines().filter(|l| l.contains("0 → 1")).count(), 2);
+        let json = serde_json::to_value(&report).unwrap();
+        assert_eq!(json["checkpoints"][1]["path"], "run/step1.safetensors");
+        assert_eq!(json["tables"][0]["matched_by"], "name");
+    }
+}
