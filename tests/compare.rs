@@ -573,3 +573,25 @@ fn json_follows_the_contract_and_out_writes_linked_files_only() {
         run.stdout
     );
 }
+
+#[test]
+fn a_table_with_nan_is_a_finding_not_a_failure() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = Rng(21);
+    let a = Table::gaussian(&mut rng, 32, 8, 0.02).f32();
+    let mut b = a.clone();
+    b.v[5 * 8 + 3] = f64::NAN;
+    let doc = compare_json(&checkpoints(dir.path(), POS, Dt::F32, &[a, b]), &[]);
+    let t = table(&doc, POS);
+    let step = &t["steps"][0];
+    assert_eq!(step["per_row"], false);
+    assert!(
+        step["note"].as_str().unwrap().contains("non-finite"),
+        "{step}"
+    );
+    let f = &t["findings"][0];
+    assert_eq!(
+        (f["code"].as_str(), f["severity"].as_str()),
+        (Some("non-finite"), Some("error"))
+    );
+}
