@@ -34,6 +34,10 @@ pub enum Command {
     ///   posaudit audit ckpt/ --out audit-report               report.json, report.md, plots
     ///   posaudit audit ckpt/ --json --fail-on warning         CI gate: exit 1 on warnings
     Audit(AuditArgs),
+    /// Compare the position tables of two or more checkpoints (steps of one run, or runs).
+    ///
+    /// Example: posaudit compare step-1000 step-2000 step-3000 --out report/
+    Compare(CompareArgs),
 }
 
 /// The level at which `--fail-on` makes the exit code 1.
@@ -85,6 +89,26 @@ pub struct ScanArgs {
     pub json: bool,
 }
 
+/// Arguments of `compare`.
+#[derive(Debug, clap::Args)]
+pub struct CompareArgs {
+    /// Two or more checkpoints (files or folders, any mix of formats), in order: each is
+    /// compared with the next, and the first with the last when there are three or more.
+    #[arg(value_name = "PATH", num_args = 2.., required = true)]
+    pub paths: Vec<PathBuf>,
+    /// Compare only this tensor (repeatable), treated as a position table even if the
+    /// detector would not. It must exist in at least one checkpoint.
+    #[arg(long = "table", value_name = "NAME")]
+    pub tables: Vec<String>,
+    /// Write report.json, report.md and the SVG plots it links into this folder
+    /// (created if needed; each file written atomically).
+    #[arg(long, value_name = "DIR")]
+    pub out: Option<PathBuf>,
+    /// Print the JSON document (schema posaudit/compare/v1) on stdout and nothing else there.
+    #[arg(long)]
+    pub json: bool,
+}
+
 #[cfg(test)]
 mod tests {
     #[test]
@@ -121,5 +145,16 @@ mod tests {
             panic!("scan expected")
         };
         assert_eq!(args.tables, vec!["a", "b"]);
+    }
+
+    #[test]
+    fn compare_needs_two_paths() {
+        assert!(Cli::try_parse_from(["posaudit", "compare", "a.safetensors"]).is_err());
+        let cli = Cli::try_parse_from(["posaudit", "compare", "a", "b", "c", "--json"]).unwrap();
+        let Command::Compare(args) = cli.command else {
+            panic!("compare expected");
+        };
+        assert_eq!(args.paths.len(), 3);
+        assert!(args.json && args.out.is_none());
     }
 }

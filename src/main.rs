@@ -46,6 +46,10 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
             Ok(ExitCode::SUCCESS)
         }
         Command::Audit(args) => audit(args),
+        Command::Compare(args) => {
+            emit(&posaudit::compare::run::command(&args)?)?;
+            Ok(ExitCode::SUCCESS)
+        }
     }
 }
 

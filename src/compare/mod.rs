@@ -18,6 +18,7 @@
 //! JSON contract (`from`, `to`, `change`, `unchanged`, `subspace_similarity`).
 
 pub mod change;
+pub mod run;
 pub mod similarity;
 pub mod timeline;
 pub mod unchanged;

@@ -4,6 +4,7 @@
 //! the JSON documents are these structs serialised; the terminal summary, the Markdown
 //! report and the SVG plots are renderings of the same structs.
 
+pub mod compare_report;
 pub mod figures;
 pub mod markdown;
 pub mod model;

@@ -1,0 +1,642 @@
+//! `posaudit compare`: open each checkpoint in turn, find its position tables, match them
+//! across checkpoints, and run the pure comparisons of this module on each pair.
+//!
+//! This is the only part of [`crate::compare`] that does I/O. Memory stays of the order of
+//! the tables, never of the checkpoints or of the number of checkpoints: checkpoints are
+//! visited one at a time (each is closed, and its memory map dropped, before the next is
+//! opened), and per table at most the previous and the current version are held, plus
+//! the first version for the first→last comparison (shared with "previous" while they
+//! are the same). Per-step results are vectors of one number per position; the timeline
+//! keeps a running summary.
+//!
+//! # Matching
+//! A table of a later checkpoint belongs to a table already seen when it has the same
+//! tensor name; otherwise when it is the only not-yet-matched table of the same kind and
+//! the same squeezed shape (a renamed module, another format's naming). The report says
+//! which rule matched (`matched_by`). A table found in no earlier checkpoint starts a
+//! new entry, whose earlier checkpoints count as missing.
+
+use std::path::{Path, PathBuf};
+use std::rc::Rc;
+
+use ndarray::{Array2, s};
+
+use super::{
+    CompareError, DEFAULT_MEDIAN_FRACTION, StepOptions, Timeline, common_leading_rows,
+    compare_step, estimate_noise, rounding_tolerance, similarity,
+};
+use crate::checkpoint::{Checkpoint, Dtype, TensorInfo};
+use crate::cli::CompareArgs;
+use crate::detect::{self, Detected, Kind};
+use crate::report::compare_report::{
+    COMPARE_SCHEMA, CheckpointEntry, CompareFinding, CompareReport, MatchedBy, StepEntry,
+    TableComparison, TableMatch, render_markdown, render_plots, render_terminal,
+};
+use crate::report::model::{CheckpointSummary, Finding, Severity};
+use crate::report::output::{prepare_dir, write_report};
+
+/// Most `unchanged-rows` findings per step; further ranges are summed up in one more.
+const MAX_RANGE_FINDINGS: usize = 4;
+
+/// Runs the `compare` command: returns what goes to stdout (the JSON document with
+/// `--json`, otherwise the terminal summary) after writing the `--out` folder if asked.
+/// Errors are one line naming the file and the problem (exit code 2).
+pub fn command(args: &CompareArgs) -> Result<String, String> {
+    if let Some(dir) = &args.out {
+        prepare_dir(dir)?;
+    }
+    let report = compare(&args.paths, &args.tables)?;
+    if let Some(dir) = &args.out {
+        let mut files: Vec<(String, Vec<u8>)> = render_plots(&report)
+            .into_iter()
+            .map(|(name, svg)| (name, svg.into_bytes()))
+            .collect();
+        files.push(("report.json".into(), to_json(&report)?.into_bytes()));
+        files.push(("report.md".into(), render_markdown(&report).into_bytes()));
+        write_report(dir, &files)?;
+    }
+    if args.json {
+        to_json(&report)
+    } else {
+        let mut text = render_terminal(&report);
+        if let Some(dir) = &args.out {
+            text.push_str(&format!("\nreport written to {}\n", dir.display()));
+        }
+        Ok(text)
+    }
+}
+
+fn to_json(report: &CompareReport) -> Result<String, String> {
+    let mut json = serde_json::to_string_pretty(report).map_err(|e| e.to_string())?;
+    json.push('\n');
+    Ok(json)
+}
+
+/// One version of a table held in memory.
+#[derive(Clone)]
+struct Held {
+    index: usize,
+    table: Rc<Array2<f64>>,
+    dtype: Dtype,
+}
+
+/// A table followed across checkpoints.
+struct Tracked {
+    entry: TableComparison,
+    squeezed: Vec<usize>,
+    first: Option<Held>,
+    prev: Option<Held>,
+    present: usize,
+    timeline: Option<Timeline>,
+    timeline_problem: Option<String>,
+}
+
+/// Explicit mantissa bits of a storage type; integers and F64 are exact in f64.
+fn mantissa_bits(d: &Dtype) -> u32 {
+    match d {
+        Dtype::F32 => 23,
+        Dtype::F16 => 10,
+        Dtype::BF16 => 7,
+        _ => 52,
+    }
+}
+
+/// Compares the checkpoints at `paths` (at least two) in order. `forced` restricts the
+/// comparison to these tensor names (treated as tables even if the detector would not);
+/// each must exist in at least one checkpoint.
+pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, String> {
+    if paths.len() < 2 {
+        return Err(format!(
+            "compare needs at least two checkpoints, got {}",
+            paths.len()
+        ));
+    }
+    // Open every checkpoint once first (headers only), so a bad path fails before any
+    // table is read; each is closed again right away.
+    let mut checkpoints = Vec::with_capacity(paths.len());
+    let mut seen_forced = vec![false; forced.len()];
+    for (index, path) in paths.iter().enumerate() {
+        let ckpt = open(path)?;
+        for (f, seen) in forced.iter().zip(seen_forced.iter_mut()) {
+            *seen |= ckpt.tensor(f).is_some();
+        }
+        checkpoints.push(CheckpointEntry {
+            index,
+            summary: CheckpointSummary::of(&ckpt),
+        });
+    }
+    if let Some((f, _)) = forced.iter().zip(&seen_forced).find(|(_, s)| !**s) {
+        let first = open(&paths[0])?;
+        let close = detect::closest_names(f, first.tensors.iter().map(|t| t.name.as_str()), 3);
+        let hint = if close.is_empty() {
+            String::new()
+        } else {
+            format!("; closest in the first: `{}`", close.join("`, `"))
+        };
+        return Err(format!(
+            "{}: no tensor named `{f}` in this or any of the other {} checkpoints{hint}",
+            paths[0].display(),
+            paths.len() - 1
+        ));
+    }
+    let n_ckpt = paths.len();
+    let quiet_window = if n_ckpt >= 5 { 2 } else { 1 };
+    let mut warnings = Vec::new();
+    let mut tracked: Vec<Tracked> = Vec::new();
+    let mut ignored_ids: Vec<String> = Vec::new();
+    let options = StepOptions::default();
+    for (index, path) in paths.iter().enumerate() {
+        let ckpt = open(path)?;
+        warnings.extend(ckpt.warnings.iter().map(|w| format!("[{index}] {w}")));
+        let present: Vec<String> = forced
+            .iter()
+            .filter(|f| ckpt.tensor(f).is_some())
+            .cloned()
+            .collect();
+        let detection = detect::detect(&ckpt, &present).map_err(|e| e.to_string())?;
+        let mut candidates: Vec<(&Detected, &TensorInfo)> = Vec::new();
+        for d in &detection.tables {
+            if d.kind == Kind::PositionIds {
+                if !ignored_ids.contains(&d.name) {
+                    warnings.push(format!(
+                        "`{}`: position-id buffers are not compared (integers, not a table)",
+                        d.name
+                    ));
+                    ignored_ids.push(d.name.clone());
+                }
+                continue;
+            }
+            if let Some(t) = ckpt.tensor(&d.name) {
+                candidates.push((d, t));
+            }
+        }
+        let assigned = match_tables(&tracked, &candidates);
+        let mut used = vec![false; candidates.len()];
+        for (ti, slot) in assigned.iter().enumerate() {
+            let Some((ci, how)) = *slot else {
+                tracked[ti].entry.matches.push(None);
+                tracked[ti].entry.missing_from.push(index);
+                continue;
+            };
+            used[ci] = true;
+            let (_, info) = candidates[ci];
+            visit(
+                &mut tracked[ti],
+                &ckpt,
+                info,
+                index,
+                how,
+                &options,
+                &mut warnings,
+            );
+        }
+        for (ci, &(d, info)) in candidates.iter().enumerate() {
+            if used[ci] || (!forced.is_empty() && !forced.contains(&d.name)) {
+                continue;
+            }
+            let mut t = Tracked {
+                entry: TableComparison {
+                    name: d.name.clone(),
+                    kind: d.kind,
+                    matched_by: MatchedBy::Name,
+                    matches: vec![None; index],
+                    missing_from: (0..index).collect(),
+                    steps: Vec::new(),
+                    first_to_last: None,
+                    timeline: None,
+                    timeline_unavailable: None,
+                    findings: Vec::new(),
+                    notes: Vec::new(),
+                },
+                squeezed: info.squeezed_shape(),
+                first: None,
+                prev: None,
+                present: 0,
+                timeline: (n_ckpt >= 3).then(|| Timeline::new(quiet_window)),
+                timeline_problem: None,
+            };
+            visit(
+                &mut t,
+                &ckpt,
+                info,
+                index,
+                MatchedBy::Name,
+                &options,
+                &mut warnings,
+            );
+            tracked.push(t);
+        }
+        // `ckpt` (and its memory map) is dropped here, before the next one is opened.
+    }
+    let tables = tracked
+        .into_iter()
+        .map(|t| finish(t, n_ckpt, &options))
+        .collect();
+    Ok(CompareReport {
+        schema: COMPARE_SCHEMA,
+        checkpoints,
+        tables,
+        warnings,
+    })
+}
+
+fn open(path: &Path) -> Result<Checkpoint, String> {
+    Checkpoint::open(path).map_err(|e| e.to_string())
+}
+
+/// For each tracked table, the candidate it matches in this checkpoint: first by name,
+/// then (for the rest) by kind and squeezed shape when exactly one unused candidate fits.
+fn match_tables(
+    tracked: &[Tracked],
+    candidates: &[(&Detected, &TensorInfo)],
+) -> Vec<Option<(usize, MatchedBy)>> {
+    let mut used = vec![false; candidates.len()];
+    let mut out = vec![None; tracked.len()];
+    for (ti, t) in tracked.iter().enumerate() {
+        if let Some(ci) = candidates
+            .iter()
+            .position(|(d, _)| d.name == t.entry.name)
+            .filter(|&ci| !used[ci])
+        {
+            used[ci] = true;
+            out[ti] = Some((ci, MatchedBy::Name));
+        }
+    }
+    for (ti, t) in tracked.iter().enumerate() {
+        if out[ti].is_some() {
+            continue;
+        }
+        let fits: Vec<usize> = (0..candidates.len())
+            .filter(|&ci| {
+                !used[ci]
+                    && candidates[ci].0.kind == t.entry.kind
+                    && candidates[ci].1.squeezed_shape() == t.squeezed
+                    // A name that another tracked table will claim is not up for grabs.
+                    && !tracked.iter().any(|o| o.entry.name == candidates[ci].0.name)
+            })
+            .collect();
+        if let [ci] = fits[..] {
+            used[ci] = true;
+            out[ti] = Some((ci, MatchedBy::KindAndShape));
+        }
+    }
+    out
+}
+
+/// Reads a tensor as a table: rows × last dimension, a 1-D vector as a column.
+fn read_as_table(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Array2<f64>, String> {
+    let table = ckpt.read_table(t).map_err(|e| e.to_string())?;
+    if t.squeezed_shape().len() <= 1 {
+        let n = table.len();
+        return Array2::from_shape_vec((n, 1), table.into_iter().collect())
+            .map_err(|e| e.to_string());
+    }
+    Ok(table)
+}
+
+fn visit(
+    t: &mut Tracked,
+    ckpt: &Checkpoint,
+    info: &TensorInfo,
+    index: usize,
+    how: MatchedBy,
+    options: &StepOptions,
+    warnings: &mut Vec<String>,
+) {
+    t.entry.matches.push(Some(TableMatch {
+        checkpoint: index,
+        name: info.name.clone(),
+        matched_by: how,
+        shape: info.shape.clone(),
+        dtype: info.dtype.to_string(),
+    }));
+    if how == MatchedBy::KindAndShape {
+        t.entry.matched_by = MatchedBy::KindAndShape;
+    }
+    let table = match read_as_table(ckpt, info) {
+        Ok(table) => table,
+        Err(e) => {
+            warnings.push(format!("[{index}] `{}`: not compared: {e}", info.name));
+            t.entry.missing_from.push(index);
+            return;
+        }
+    };
+    let cur = Held {
+        index,
+        table: Rc::new(table),
+        dtype: info.dtype.clone(),
+    };
+    t.present += 1;
+    if let Some(prev) = t.prev.take() {
+        let (step, findings) = make_step(&prev, &cur, options);
+        t.entry.findings.extend(findings);
+        if let Some(tl) = &mut t.timeline {
+            let pushed = match (&step.noise, step.per_row) {
+                (Some(noise), true) => tl
+                    .push_step(step.from, step.to, &step.change, noise.value)
+                    .map_err(|e| e.to_string()),
+                _ => Err(format!(
+                    "step {} → {} has no per-row change",
+                    step.from, step.to
+                )),
+            };
+            if let Err(e) = pushed {
+                t.timeline_problem = Some(e);
+                t.timeline = None;
+            }
+        }
+        t.entry.steps.push(step);
+    }
+    if t.first.is_none() {
+        t.first = Some(cur.clone());
+    }
+    // The old `prev` is dropped here unless it is also `first` (shared Rc).
+    t.prev = Some(cur);
+}
+
+fn finish(mut t: Tracked, n_ckpt: usize, options: &StepOptions) -> TableComparison {
+    if t.present >= 3
+        && let (Some(first), Some(last)) = (&t.first, &t.prev)
+    {
+        let (step, findings) = make_step(first, last, options);
+        t.entry.findings.extend(findings);
+        t.entry.first_to_last = Some(step);
+    }
+    if n_ckpt >= 3 && t.present >= 3 {
+        match &t.timeline {
+            Some(tl) if !tl.is_empty() => t.entry.timeline = Some(tl.summary()),
+            _ => {
+                t.entry.timeline_unavailable = Some(
+                    t.timeline_problem
+                        .take()
+                        .unwrap_or_else(|| "no step could be recorded".into()),
+                )
+            }
+        }
+    }
+    if !t.entry.missing_from.is_empty() {
+        let held: Vec<usize> = (0..n_ckpt)
+            .filter(|i| !t.entry.missing_from.contains(i))
+            .collect();
+        let list = |v: &[usize]| {
+            v.iter()
+                .map(usize::to_string)
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
+        t.entry.findings.push(CompareFinding {
+            finding: Finding {
+                code: "table-missing",
+                severity: Severity::Warning,
+                positions: None,
+                message: format!(
+                    "`{}` is missing from checkpoint{} {}; it was compared across checkpoint{} {} only.",
+                    t.entry.name,
+                    if t.entry.missing_from.len() == 1 { "" } else { "s" },
+                    list(&t.entry.missing_from),
+                    if held.len() == 1 { "" } else { "s" },
+                    list(&held)
+                ),
+                evidence: "no tensor of that name, and no single unmatched table of the same kind and shape, in those checkpoints".into(),
+                limits: "A table renamed and reshaped at once cannot be matched; compare it explicitly with --table.".into(),
+            },
+            step: None,
+        });
+        if held.len() < 2 {
+            t.entry
+                .notes
+                .push("held by fewer than two checkpoints: nothing to compare".into());
+        }
+    }
+    t.entry
+        .findings
+        .sort_by_key(|f| std::cmp::Reverse(f.finding.severity));
+    t.entry
+}
+
+/// The coarser storage type of two tables and the unchanged tolerance it implies.
+fn tolerance(a: &Dtype, b: &Dtype) -> (f64, String) {
+    let coarser = if mantissa_bits(a) <= mantissa_bits(b) {
+        a
+    } else {
+        b
+    };
+    (
+        rounding_tolerance(mantissa_bits(coarser)),
+        coarser.to_string(),
+    )
+}
+
+fn empty_step(a: &Held, b: &Held, rows: usize) -> StepEntry {
+    StepEntry {
+        from: a.index,
+        to: b.index,
+        change: Vec::new(),
+        unchanged: Vec::new(),
+        subspace_similarity: None,
+        rows_compared: rows,
+        shapes: [
+            [a.table.nrows(), a.table.ncols()],
+            [b.table.nrows(), b.table.ncols()],
+        ],
+        per_row: false,
+        note: None,
+        mean_change: None,
+        median_relative_change: None,
+        unchanged_rows: 0,
+        relative_change: Vec::new(),
+        cosine: Vec::new(),
+        most_moved: Vec::new(),
+        unchanged_detail: Vec::new(),
+        unchanged_tolerance: None,
+        tolerance_dtype: None,
+        noise: None,
+        similarity: None,
+        similarity_unavailable: None,
+    }
+}
+
+fn median(mut v: Vec<f64>) -> Option<f64> {
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    Some(if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        0.5 * (v[n / 2 - 1] + v[n / 2])
+    })
+}
+
+/// Compares two versions of a table; returns the step and its findings.
+fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<CompareFinding>) {
+    let (ta, tb) = (a.table.view(), b.table.view());
+    let rows = ta.nrows().min(tb.nrows());
+    let mut step = empty_step(a, b, rows);
+    let mut findings = Vec::new();
+    let where_ = format!("checkpoint {} → {}", a.index, b.index);
+    if ta.ncols() != tb.ncols() {
+        step.note = Some(format!(
+            "widths differ ({} vs {} columns): per-row change cannot be computed; similarity of the first {rows} rows only",
+            ta.ncols(),
+            tb.ncols()
+        ));
+        findings.push(shape_finding(a, b, &step, &where_));
+        let (x, y) = (ta.slice(s![..rows, ..]), tb.slice(s![..rows, ..]));
+        match similarity(x, y, &options.similarity) {
+            Ok(sim) => {
+                step.subspace_similarity = Some(sim.subspace_similarity);
+                step.similarity = Some(sim);
+            }
+            Err(e) => step.similarity_unavailable = Some(e.to_string()),
+        }
+        return (step, findings);
+    }
+    if ta.nrows() != tb.nrows() {
+        step.note = Some(format!(
+            "row counts differ ({} vs {}): the first {rows} rows compared",
+            ta.nrows(),
+            tb.nrows()
+        ));
+        findings.push(shape_finding(a, b, &step, &where_));
+    }
+    let (tol, tol_dtype) = tolerance(&a.dtype, &b.dtype);
+    let step_options = StepOptions {
+        unchanged_tolerance: tol,
+        ..options.clone()
+    };
+    // Widths are equal here, so this cannot fail.
+    let Ok((x, y)) = common_leading_rows(ta, tb) else {
+        return (step, findings);
+    };
+    match compare_step(a.index, b.index, x, y, &step_options) {
+        Ok(sc) => {
+            step.per_row = true;
+            step.mean_change = (!sc.change.is_empty())
+                .then(|| sc.change.iter().sum::<f64>() / sc.change.len() as f64);
+            step.median_relative_change =
+                median(sc.relative_change.iter().flatten().copied().collect());
+            step.unchanged_rows = sc.unchanged.iter().map(|[s, e]| e - s).sum();
+            step.noise = estimate_noise(&sc.change, &sc.unchanged, DEFAULT_MEDIAN_FRACTION).ok();
+            step.change = sc.change;
+            step.unchanged = sc.unchanged;
+            step.subspace_similarity = sc.subspace_similarity;
+            step.relative_change = sc.relative_change;
+            step.cosine = sc.cosine;
+            step.most_moved = sc.most_moved;
+            step.unchanged_detail = sc.unchanged_detail;
+            step.unchanged_tolerance = Some(tol);
+            step.tolerance_dtype = Some(tol_dtype.clone());
+            step.similarity = sc.similarity;
+            step.similarity_unavailable = sc.similarity_unavailable;
+            findings.extend(unchanged_findings(&step, &tol_dtype, &where_));
+        }
+        Err(e) => {
+            let reason = e.to_string();
+            if let CompareError::NonFinite { which, count } = e {
+                let idx = if which == "first" { a.index } else { b.index };
+                findings.push(CompareFinding {
+                    finding: Finding {
+                        code: "non-finite",
+                        severity: Severity::Error,
+                        positions: None,
+                        message: format!(
+                            "The table in checkpoint {idx} holds {count} NaN or infinite values; {where_} was not compared."
+                        ),
+                        evidence: reason.clone(),
+                        limits: "Run `posaudit audit` on that checkpoint to see which rows.".into(),
+                    },
+                    step: Some([a.index, b.index]),
+                });
+            }
+            step.note = Some(match step.note.take() {
+                Some(n) => format!("{n}; not compared: {reason}"),
+                None => format!("not compared: {reason}"),
+            });
+        }
+    }
+    (step, findings)
+}
+
+fn shape_finding(a: &Held, b: &Held, step: &StepEntry, where_: &str) -> CompareFinding {
+    CompareFinding {
+        finding: Finding {
+            code: "shape-changed",
+            severity: Severity::Warning,
+            positions: None,
+            message: format!(
+                "The table changed shape ({}x{} → {}x{}) between {where_}.",
+                a.table.nrows(),
+                a.table.ncols(),
+                b.table.nrows(),
+                b.table.ncols()
+            ),
+            evidence: step.note.clone().unwrap_or_default(),
+            limits: "Rows are assumed to keep their positions (a table extended or cut at the end); a table re-interpolated to a new length cannot be compared row by row.".into(),
+        },
+        step: Some([a.index, b.index]),
+    }
+}
+
+const UNCHANGED_LIMITS: &str = "Identical up to a scale means never updated, only decayed: no gradient reached these rows between the two checkpoints, and decoupled weight decay alone shrank them by the common factor (exactly 1 means untouched or frozen). It says nothing about whether they were trained before the earlier checkpoint.";
+
+fn unchanged_findings(step: &StepEntry, dtype: &str, where_: &str) -> Vec<CompareFinding> {
+    let mut out = Vec::new();
+    let tol = step.unchanged_tolerance.unwrap_or(0.0);
+    for r in step.unchanged_detail.iter().take(MAX_RANGE_FINDINGS) {
+        let rows = r.end - r.start;
+        let message = if r.bit_identical {
+            format!(
+                "Rows {}–{} ({rows} rows) are bit-identical between {where_}.",
+                r.start, r.end
+            )
+        } else {
+            format!(
+                "Rows {}–{} ({rows} rows) are identical between {where_} up to one common scale factor ×{:.6}.",
+                r.start, r.end, r.scale
+            )
+        };
+        let largest = step.change[r.start..r.end.min(step.change.len())]
+            .iter()
+            .copied()
+            .fold(0.0, f64::max);
+        out.push(CompareFinding {
+            finding: Finding {
+                code: "unchanged-rows",
+                severity: Severity::Info,
+                positions: Some([r.start, r.end]),
+                message,
+                evidence: format!(
+                    "scale factor {:.9}, largest relative row residual {:.2e} ≤ tolerance {tol:.2e} ({dtype} storage); largest L2 change among these rows {largest:.3e}",
+                    r.scale, r.residual
+                ),
+                limits: UNCHANGED_LIMITS.into(),
+            },
+            step: Some([step.from, step.to]),
+        });
+    }
+    let rest = &step.unchanged_detail[step.unchanged_detail.len().min(MAX_RANGE_FINDINGS)..];
+    if !rest.is_empty() {
+        let rows: usize = rest.iter().map(|r| r.end - r.start).sum();
+        out.push(CompareFinding {
+            finding: Finding {
+                code: "unchanged-rows",
+                severity: Severity::Info,
+                positions: None,
+                message: format!(
+                    "{} more unchanged ranges ({rows} rows) between {where_}; all are listed in the step's `unchanged_detail`.",
+                    rest.len()
+                ),
+                evidence: format!(
+                    "scale factors from {:.6} to {:.6}",
+                    rest.iter().map(|r| r.scale).fold(f64::INFINITY, f64::min),
+                    rest.iter().map(|r| r.scale).fold(0.0, f64::max)
+                ),
+                limits: UNCHANGED_LIMITS.into(),
+            },
+            step: Some([step.from, step.to]),
+        });
+    }
+    out
+}
