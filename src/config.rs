@@ -288,6 +288,9 @@ impl ConfigHints {
         if let Some(h) = &self.patch_size {
             parts.push(format!("{} {}", h.key, h.value));
         }
+        if let Some(h) = &self.window_size {
+            parts.push(format!("{} {}", h.key, h.value));
+        }
         if let Some(h) = &self.position_embedding_type {
             parts.push(format!("{} {}", h.key, h.value));
         }

@@ -88,6 +88,52 @@ pub struct Detection {
     pub tables: Vec<Detected>,
     /// Tensors of unanalysable types.
     pub skipped: Vec<Skipped>,
+    /// Integer index buffers that point into a position table (recognised, not tables).
+    pub index_buffers: Vec<IndexBuffer>,
+}
+
+/// An integer buffer that indexes a position table (e.g. a windowed model's
+/// `relative_position_index`): recognised and described, not analysed as a table.
+#[derive(Debug, Clone, Serialize)]
+pub struct IndexBuffer {
+    /// Tensor name.
+    pub name: String,
+    /// Stored shape.
+    pub shape: Vec<usize>,
+    /// What it is, in plain words.
+    pub what: String,
+}
+
+/// Largest index buffer read to recognise it (elements).
+const MAX_INDEX_BUFFER: usize = 1 << 20;
+
+fn index_buffer(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Option<IndexBuffer>, CheckpointError> {
+    if !t.dtype.is_integer()
+        || !t
+            .name
+            .to_ascii_lowercase()
+            .contains("relative_position_index")
+    {
+        return Ok(None);
+    }
+    let what = if t.numel() <= MAX_INDEX_BUFFER {
+        let values = ckpt.read_i64(t)?;
+        match crate::analyze::relative::is_swin_index(values.as_slice().unwrap_or(&[]), &t.shape) {
+            Some((h, w)) => format!(
+                "window index for a {h}x{w} window: maps each (query, key) pair to one of the {} rows of the relative-bias table (check-values §5.2 construction); an index, not a table",
+                (2 * h - 1) * (2 * w - 1)
+            ),
+            None => "relative-position index buffer, not the standard window construction; an index, not a table".to_string(),
+        }
+    } else {
+        "relative-position index buffer (too large to read for recognition); an index, not a table"
+            .to_string()
+    };
+    Ok(Some(IndexBuffer {
+        name: t.name.clone(),
+        shape: t.shape.clone(),
+        what,
+    }))
 }
 
 /// Maximum rows read by the content probe of one tensor.
@@ -440,6 +486,12 @@ pub fn detect(ckpt: &Checkpoint, forced: &[String]) -> Result<Detection, Checkpo
                 dtype: t.dtype.to_string(),
                 reason,
             });
+            continue;
+        }
+        if !forced.iter().any(|f| f == &t.name)
+            && let Some(b) = index_buffer(ckpt, t)?
+        {
+            out.index_buffers.push(b);
             continue;
         }
         let found = if forced.iter().any(|f| f == &t.name) {

@@ -28,6 +28,7 @@ pub fn scan_opened(ckpt: &Checkpoint, forced: &[String]) -> Result<ScanReport, S
         config: ckpt.config.clone(),
         tables,
         skipped: detection.skipped,
+        index_buffers: detection.index_buffers,
         warnings: ckpt.warnings.clone(),
     })
 }

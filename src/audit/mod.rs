@@ -229,6 +229,17 @@ pub fn audit_opened(
     } else {
         kinds::rotary_from_config(config)
     };
+    let config_alibi = config.and_then(|c| {
+        let is_alibi = c
+            .position_embedding_type
+            .as_ref()
+            .is_some_and(|h| h.value.eq_ignore_ascii_case("alibi"));
+        let heads = usize::try_from(c.num_heads.as_ref()?.value).ok()?;
+        is_alibi.then(|| crate::report::model::AlibiSlopes {
+            heads,
+            slopes: crate::analyze::rotary::alibi_slopes(heads),
+        })
+    });
     let summary = FindingCounts::of(&tables);
     Ok(AuditReport {
         schema: AUDIT_SCHEMA,
@@ -237,6 +248,8 @@ pub fn audit_opened(
         tables,
         config_rotary,
         skipped: detection.skipped,
+        index_buffers: detection.index_buffers,
+        config_alibi,
         warnings,
         summary,
     })

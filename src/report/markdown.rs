@@ -94,6 +94,32 @@ pub fn audit(report: &AuditReport) -> (String, Vec<Figure>) {
         section(&mut md, t, i, &figs);
         all_figures.extend(figs);
     }
+    if let Some(a) = &report.config_alibi {
+        let _ = writeln!(md, "## ALiBi slopes from the config\n");
+        let _ = writeln!(
+            md,
+            "The config encodes positions with linear attention biases (ALiBi); no tensor is stored. The {} heads use slopes {} (geometric sequence of the published construction).\n",
+            a.heads,
+            a.slopes
+                .iter()
+                .map(|s| format!("{s:.6}"))
+                .collect::<Vec<_>>()
+                .join(", ")
+        );
+    }
+    if !report.index_buffers.is_empty() {
+        let _ = writeln!(md, "## Index buffers\n");
+        for b in &report.index_buffers {
+            let _ = writeln!(
+                md,
+                "- `{}` ({}): {}",
+                b.name,
+                shape_str(&b.shape),
+                escape(&b.what)
+            );
+        }
+        md.push('\n');
+    }
     if !report.skipped.is_empty() {
         let _ = writeln!(md, "## Skipped tensors\n");
         for s in report.skipped.iter().take(20) {

@@ -16,7 +16,7 @@ use serde::Serialize;
 
 use crate::checkpoint::{Checkpoint, Format, TensorInfo};
 use crate::config::ConfigHints;
-use crate::detect::{Detected, Kind, Skipped};
+use crate::detect::{Detected, IndexBuffer, Kind, Skipped};
 
 /// Schema tag of the scan document.
 pub const SCAN_SCHEMA: &str = "posaudit/scan/v1";
@@ -93,6 +93,8 @@ pub struct ScanReport {
     pub tables: Vec<TableEntry>,
     /// Tensors of types the analyses cannot read.
     pub skipped: Vec<Skipped>,
+    /// Integer index buffers that point into position tables (not tables themselves).
+    pub index_buffers: Vec<IndexBuffer>,
     /// Non-fatal problems met while opening.
     pub warnings: Vec<String>,
 }
@@ -155,6 +157,10 @@ pub struct AuditReport {
     pub config_rotary: Option<crate::analyze::rotary::RotaryAnalysis>,
     /// Tensors of types the analyses cannot read.
     pub skipped: Vec<Skipped>,
+    /// Integer index buffers that point into position tables (not tables themselves).
+    pub index_buffers: Vec<IndexBuffer>,
+    /// ALiBi slopes, when the config says positions are encoded by linear biases.
+    pub config_alibi: Option<AlibiSlopes>,
     /// Non-fatal problems met while opening or analysing.
     pub warnings: Vec<String>,
     /// Counts of findings by severity.
@@ -194,4 +200,13 @@ impl FindingCounts {
             Severity::Error => self.error > 0,
         }
     }
+}
+
+/// ALiBi slopes implied by the config (no tensor is stored: they are computed at run time).
+#[derive(Debug, Clone, Serialize)]
+pub struct AlibiSlopes {
+    /// Number of attention heads.
+    pub heads: usize,
+    /// Slope of each head, in head order (check-values §6.9).
+    pub slopes: Vec<f64>,
 }

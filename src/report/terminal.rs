@@ -106,6 +106,15 @@ pub fn scan(report: &ScanReport) -> String {
             &rows,
         ));
     }
+    for b in &report.index_buffers {
+        let _ = writeln!(
+            out,
+            "\nindex buffer `{}` ({}): {}",
+            b.name,
+            shape_str(&b.shape),
+            b.what
+        );
+    }
     if !report.skipped.is_empty() {
         let _ = writeln!(
             out,
