@@ -8,8 +8,8 @@
 //!
 //! # Why a hand-written SVG writer instead of `plotters`
 //!
-//! The crate depends on `plotters` 0.3.7 with only `svg_backend`, `line_series`
-//! and `point_series`. Without its `ttf`/`ab_glyph` features plotters measures
+//! `plotters` 0.3.7 (tried with only `svg_backend`, `line_series`
+//! and `point_series`; removed since) cannot do it: without its `ttf`/`ab_glyph` features plotters measures
 //! text with a fixed guess (0.7 em per character, its `naive` font module) and
 //! still emits `<text>` elements, so it gains us no font independence, while its
 //! SVG backend can only embed bitmaps with the `image` feature: a 512×512
