@@ -4,7 +4,7 @@
 #   bench/svd_bench.sh [--features lapack] [SIZES...]     (default sizes 1024x768 4096x1024 8192x4096)
 #
 # Ours: linalg::singular_values + linalg::leading_components(.., 8), release build, one thread
-# (POSAUDIT_THREADS overrides). numpy: np.linalg.svd(x, full_matrices=False) from /work/venv,
+# (POSAUDIT_THREADS overrides). numpy: np.linalg.svd(x, full_matrices=False) from a venv with numpy (PYTHON=...),
 # with OPENBLAS_NUM_THREADS=1 (and OMP/MKL likewise) for a fair one-thread comparison.
 # Prints one line per size with both times and ratio = ours / numpy (target <= 1.0).
 set -euo pipefail
@@ -13,7 +13,7 @@ features=()
 if [[ "${1:-}" == "--features" ]]; then features=(--features "$2"); shift 2; fi
 sizes=("$@")
 [[ ${#sizes[@]} -eq 0 ]] && sizes=(1024x768 4096x1024 8192x4096)
-py=${PYTHON:-/work/venv/bin/python}
+py=${PYTHON:-python3}
 tmp=$(mktemp -d)
 trap 'rm -rf "$tmp"' EXIT
 export OPENBLAS_NUM_THREADS=${OPENBLAS_NUM_THREADS:-1} OMP_NUM_THREADS=${OMP_NUM_THREADS:-1} MKL_NUM_THREADS=${MKL_NUM_THREADS:-1}

@@ -1,13 +1,13 @@
 """Reference values for the non-1-D kinds (src/analyze/{grid,relative,rotary}.rs).
 
 Each quantity is computed here with numpy, in float32 where the published code works in
-float32, straight from the formulas named in /work/shared/check-values.md:
+float32, straight from the formulas named in the project's shared check-values notes:
   * mae_grid      -- fixed 2-D sine-cosine grid with a zero class row (section 2.6),
                      grid built with np.meshgrid(grid_w, grid_h) ('xy' indexing), so the
                      first D/2 columns follow the column index.
   * t5_buckets    -- T5 relative-position bucket (section 5.1), log evaluated in float32.
   * llama31       -- Llama 3.1 scaled inverse frequencies (section 6.6), float32.
-Run: /work/venv/bin/python tests/reference/kinds.py  (writes kinds.json beside itself).
+Run: python3 tests/reference/kinds.py (numpy in a venv)  (writes kinds.json beside itself).
 """
 import json
 import pathlib

@@ -1,8 +1,8 @@
 """Reference values for posaudit's spectrum, neighbour and linalg tests, from numpy.
 
-Run with the project venv (outside the repository):
+Run with a Python that has numpy (a venv outside the repository):
 
-    /work/venv/bin/python tests/reference/spectrum_reference.py
+    python3 tests/reference/spectrum_reference.py
 
 It writes tests/reference/data/spectrum_reference.json. Large tables are not stored:
 they are defined by formulas that the Rust tests rebuild exactly the same way
