@@ -13,7 +13,7 @@ and, for each pair, values computed with numpy/scipy:
 It also simulates the CKA chance level for independent Gaussian tables and records it
 beside the formula sqrt(dx dy / ((n+dx)(n+dy))).
 
-Run: /work/venv/bin/python tests/reference/subspace_reference.py
+Run: python3 tests/reference/subspace_reference.py (numpy and scipy in a venv)
 """
 
 import json
