@@ -212,24 +212,6 @@ pub struct SinusoidFit {
     pub precision: PrecisionEvidence,
 }
 
-/// Half-ULP (largest rounding error) of a storage dtype for values in [−1, 1].
-///
-/// ```text
-/// f64 2^-54   f32 2^-25   f16 2^-12 (2.44e-4)   bf16 2^-9 (1.95e-3)
-/// ```
-/// The f16/bf16 values are the published maximum errors of rounding an exact table
-/// (check-values §7.2). `name` is a safetensors-style dtype name (`F32`, `BF16`, …);
-/// returns None for other dtypes.
-pub fn storage_half_ulp(name: &str) -> Option<f64> {
-    match name.to_ascii_uppercase().as_str() {
-        "F64" => Some(2f64.powi(-54)),
-        "F32" => Some(2f64.powi(-25)),
-        "F16" => Some(2f64.powi(-12)),
-        "BF16" => Some(2f64.powi(-9)),
-        _ => None,
-    }
-}
-
 /// Largest allowed median relative deviation of pair radii before a table is
 /// "clearly not a sinusoid".
 const MAX_RADIUS_SPREAD: f64 = 0.1;
@@ -265,7 +247,7 @@ const MAX_RADIUS_SPREAD: f64 = 0.1;
 /// Marian layout (an unpaired middle sine column) is not supported.
 ///
 /// `storage_half_ulp` is the storage dtype's rounding error for values in [−1, 1]
-/// (see [`storage_half_ulp`]); it only feeds the precision evidence and the snapping
+/// (see `Dtype::half_ulp_below_one` in the checkpoint module); it only feeds the precision evidence and the snapping
 /// tolerance.
 pub fn fit_sinusoid(table: ArrayView2<f64>, storage_half_ulp: f64) -> Option<SinusoidFit> {
     let (n, d) = table.dim();
@@ -1383,7 +1365,11 @@ mod tests {
         // check-values §7.2: rounding an exact table to bf16 errs by at most 1.95e-3.
         let spec = vaswani(10000.0);
         let table = generate(&spec, 512, 768).mapv(round_bf16);
-        let fit = fit_sinusoid(table.view(), storage_half_ulp("BF16").unwrap()).unwrap();
+        let fit = fit_sinusoid(
+            table.view(),
+            crate::checkpoint::Dtype::BF16.half_ulp_below_one().unwrap(),
+        )
+        .unwrap();
         check_fit(&fit, &spec, 1.96e-3);
         assert!(
             fit.precision.error_to_half_ulp <= 1.0 + 1e-9,
@@ -1394,7 +1380,11 @@ mod tests {
         );
         assert!(fit.precision.representable_in.contains(&"bf16".to_string()));
         let table = generate(&spec, 512, 768).mapv(round_f16);
-        let fit = fit_sinusoid(table.view(), storage_half_ulp("F16").unwrap()).unwrap();
+        let fit = fit_sinusoid(
+            table.view(),
+            crate::checkpoint::Dtype::F16.half_ulp_below_one().unwrap(),
+        )
+        .unwrap();
         check_fit(&fit, &spec, 2.45e-4);
     }
 

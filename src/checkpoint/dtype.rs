@@ -6,6 +6,19 @@
 
 use std::fmt;
 
+/// Reads one number of type `$t` (`$n` bytes) from the slice `$raw` of exactly that length.
+macro_rules! read_number {
+    ($t:ty, $n:expr, $raw:expr, $big_endian:expr) => {{
+        let mut a = [0u8; $n];
+        a.copy_from_slice($raw);
+        if $big_endian {
+            <$t>::from_be_bytes(a)
+        } else {
+            <$t>::from_le_bytes(a)
+        }
+    }};
+}
+
 /// The element type of a stored tensor.
 #[derive(Debug, Clone, PartialEq, Eq, Hash)]
 pub enum Dtype {
@@ -104,22 +117,22 @@ impl Dtype {
         }
     }
 
+    /// The bytes of element `i`, or `None` when it lies outside `bytes` or the type has
+    /// no fixed size.
+    fn element<'a>(&self, bytes: &'a [u8], i: usize) -> Option<&'a [u8]> {
+        let size = self.size()?;
+        let start = i.checked_mul(size)?;
+        bytes.get(start..start.checked_add(size)?)
+    }
+
     /// Decodes element `i` of `bytes` (little- or big-endian) as f64. Returns `None` when
     /// the element lies outside `bytes` or the type is not numeric.
     pub fn decode(&self, bytes: &[u8], i: usize, big_endian: bool) -> Option<f64> {
-        let size = self.size()?;
-        let start = i.checked_mul(size)?;
-        let raw = bytes.get(start..start.checked_add(size)?)?;
+        let raw = self.element(bytes, i)?;
         macro_rules! take {
-            ($t:ty, $n:expr) => {{
-                let mut a = [0u8; $n];
-                a.copy_from_slice(raw);
-                if big_endian {
-                    <$t>::from_be_bytes(a)
-                } else {
-                    <$t>::from_le_bytes(a)
-                }
-            }};
+            ($t:ty, $n:expr) => {
+                read_number!($t, $n, raw, big_endian)
+            };
         }
         Some(match self {
             Dtype::F64 => take!(f64, 8),
@@ -142,19 +155,11 @@ impl Dtype {
     /// Decodes element `i` as i64 for integer types (exact, unlike the f64 path for
     /// values beyond 2^53). `None` for non-integer types or out-of-range elements.
     pub fn decode_int(&self, bytes: &[u8], i: usize, big_endian: bool) -> Option<i64> {
-        let size = self.size()?;
-        let start = i.checked_mul(size)?;
-        let raw = bytes.get(start..start.checked_add(size)?)?;
+        let raw = self.element(bytes, i)?;
         macro_rules! take {
-            ($t:ty, $n:expr) => {{
-                let mut a = [0u8; $n];
-                a.copy_from_slice(raw);
-                if big_endian {
-                    <$t>::from_be_bytes(a)
-                } else {
-                    <$t>::from_le_bytes(a)
-                }
-            }};
+            ($t:ty, $n:expr) => {
+                read_number!($t, $n, raw, big_endian)
+            };
         }
         match self {
             Dtype::I64 => Some(take!(i64, 8)),
