@@ -152,8 +152,38 @@ fn effective_rank_of_vaswani_and_gaussian_tables_match_published_values() {
     assert!((eg - want).abs() < 1e-9 * want);
 }
 
+/// The accuracy the audit's spectrum documents (linalg::gram module doc): for every
+/// reference value above the reported resolution, `|σ̂ − σ| ≤ p·ε·σ₁²/σ` (p = number of
+/// singular values), and 1e-10 relative for values ≥ 1e-2·σ₁ when p ≤ 1024. Returns the
+/// worst `|σ̂ − σ|·σ/(p·ε·σ₁²)` seen (the bound is 1).
+fn assert_gram_accuracy(got: &[f64], want: &[f64], resolution: f64, what: &str) -> f64 {
+    assert_eq!(got.len(), want.len(), "{what}: count");
+    let s1 = want[0];
+    let p = want.len() as f64;
+    let mut worst = 0.0f64;
+    for (g, w) in got.iter().zip(want) {
+        if *w > resolution {
+            let c = (g - w).abs() * w / (p * f64::EPSILON * s1 * s1);
+            worst = worst.max(c);
+            assert!(
+                c <= 1.0,
+                "{what}: σ = {w:e}: error {:e}, {c:.3} of the bound",
+                (g - w).abs()
+            );
+        }
+        if *w >= 1e-2 * s1 && p <= 1024.0 {
+            assert!((g - w).abs() <= 1e-10 * w, "{what}: σ = {w:e} got {g:e}");
+        }
+    }
+    worst
+}
+
 #[test]
 fn spectrum_of_the_centred_tables_matches_numpy() {
+    // numpy gesdd of the centred tables (tests/reference/spectrum_reference.py). The audit's
+    // spectrum takes the Gram route without refinement (speed target of the audit), so
+    // small values carry the documented relative error ε·(σ₁/σ)²; the exact path,
+    // linalg::singular_values, is held to 1e-10 above.
     let r = reference();
     for (name, table) in [
         ("vaswani_512x768", vaswani(512, 768)),
@@ -161,13 +191,26 @@ fn spectrum_of_the_centred_tables_matches_numpy() {
     ] {
         let e = &r["tables"][name];
         let s = spectrum::spectrum(table.view(), 8).unwrap();
-        assert_values_match(
-            &s.singular_values,
-            &floats(&e["centred_singular_values"]),
-            name,
+        let want = floats(&e["centred_singular_values"]);
+        let c = assert_gram_accuracy(&s.singular_values, &want, s.resolution, name);
+        eprintln!(
+            "{name}: worst error {c:.3} of the bound, resolution {:e}",
+            s.resolution
         );
-        let want = e["centred_effective_rank"].as_f64().unwrap();
-        assert!((s.effective_rank - want).abs() < 1e-9 * want, "{name}");
+        // The resolution sits where the method says: sqrt(p·ε)·σ₁.
+        let p = 512f64;
+        assert!((s.resolution - (p * f64::EPSILON).sqrt() * want[0]).abs() < 1e-9 * s.resolution);
+        let want_rank = e["centred_effective_rank"].as_f64().unwrap();
+        // The small values near the resolution carry relative errors up to c/p (module
+        // doc of linalg::gram), which moves the effective rank by about 1e-7 relative
+        // (6.8e-8 measured on the Vaswani table); the report prints two decimals. The
+        // exact path is held to 1e-9 in effective_rank_of_vaswani_and_gaussian_tables_….
+        let rel = (s.effective_rank - want_rank).abs() / want_rank;
+        eprintln!(
+            "{name}: effective rank {} vs numpy {want_rank}, relative {rel:e}",
+            s.effective_rank
+        );
+        assert!(rel < 1e-6, "{name}: {rel:e}");
         let energy = e["centred_energy_top_k"].as_array().unwrap();
         assert_eq!(energy.len(), s.energy_top_k.len());
         for (got, pair) in s.energy_top_k.iter().zip(energy) {
@@ -180,6 +223,64 @@ fn spectrum_of_the_centred_tables_matches_numpy() {
             let norm = comp.iter().map(|x| x * x).sum::<f64>().sqrt();
             assert!((norm - s.singular_values[c]).abs() < 1e-9 * s.singular_values[0]);
         }
+    }
+}
+
+#[test]
+fn gram_spectrum_vectors_match_numpy_on_a_random_table() {
+    // numpy's leading singular vectors of the 64x48 random table (uncentred), compared
+    // with the Gram route's (full eigen-decomposition at this size).
+    let r = &reference()["tables"]["random_64x48"];
+    let rows: Vec<Vec<f64>> = r["table"].as_array().unwrap().iter().map(floats).collect();
+    let t = Array2::from_shape_fn((64, 48), |(i, j)| rows[i][j]);
+    let g = linalg::gram_spectrum(t.view(), 3, linalg::Centring::None).unwrap();
+    assert_gram_accuracy(
+        &g.decomposition.singular_values,
+        &floats(&r["singular_values"]),
+        g.resolution,
+        "random_64x48",
+    );
+    for (j, u) in r["left_vectors_top3"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .enumerate()
+    {
+        for (i, x) in floats(u).iter().enumerate() {
+            assert!(
+                (g.decomposition.left[[i, j]] - x).abs() < 1e-10,
+                "left {i},{j}"
+            );
+        }
+    }
+}
+
+#[test]
+fn gram_spectrum_lanczos_vectors_match_the_exact_svd_on_a_large_table() {
+    // Large enough (p = 768 > 128, k = 8) for the Lanczos path; the reference is the exact
+    // thin SVD of the centred table (faer or LAPACK gesdd, itself checked against numpy
+    // above). Table: the Vaswani 1024x768 sinusoid plus the invented splitmix noise at
+    // 1e-3, so the spectrum has both a fast-falling head and a flat tail.
+    let t = vaswani(1024, 768) + splitmix_gaussian(1024, 768, 7) * 1e-3;
+    let g = linalg::gram_spectrum(t.view(), 8, linalg::Centring::Columns).unwrap();
+    assert_eq!(g.vector_method, "lanczos");
+    let mean = t.mean_axis(ndarray::Axis(0)).unwrap();
+    let exact = linalg::thin_svd((&t - &mean).view()).unwrap();
+    let c = assert_gram_accuracy(
+        &g.decomposition.singular_values,
+        &exact.singular_values,
+        g.resolution,
+        "vaswani+noise",
+    );
+    eprintln!("vaswani+noise 1024x768: worst error {c:.3} of the bound");
+    for j in 0..8 {
+        // Vectors agree up to the angle residual/gap; pairs of nearly equal singular
+        // values (sin/cos of one frequency) may rotate within their plane, so compare
+        // the projector onto the top-8 space instead of single vectors: ‖P̂ − P‖ via the
+        // cosine of each Lanczos vector against the exact top-8 space.
+        let v = g.decomposition.right.column(j);
+        let inside: f64 = (0..8).map(|i| exact.right.column(i).dot(&v).powi(2)).sum();
+        assert!((1.0 - inside).abs() < 1e-10, "vector {j}: {inside}");
     }
 }
 

@@ -6,7 +6,7 @@
 //! Vaswani sinusoid of the same shape, check-values §1.3 and §8.1). The leading
 //! components, as functions of position, are what the wave analysis then looks at.
 
-use ndarray::{Array2, ArrayView2, Axis};
+use ndarray::ArrayView2;
 use serde::Serialize;
 
 use crate::linalg::{self, LinalgError};
@@ -33,11 +33,16 @@ pub struct Spectrum {
     /// All min(rows, cols) singular values of the centred table, non-increasing, in the
     /// table's units.
     pub singular_values: Vec<f64>,
-    /// Roy–Vetterli effective rank, between 1 and the rank (0 for an all-zero table).
+    /// Roy–Vetterli effective rank, between 1 and the rank (0 for an all-zero table),
+    /// from the values above `resolution` (the others count as zero).
     pub effective_rank: f64,
     /// Energy fraction for k in [`ENERGY_KS`], clamped to the number of singular values,
     /// without repeats; empty when the centred table is all zero.
     pub energy_top_k: Vec<EnergyFraction>,
+    /// Singular values below this are rounding noise of the method (Gram-matrix
+    /// eigenvalues, see `linalg::gram_spectrum`): `sqrt(min(rows, cols)·ε)·σ₁`. Values
+    /// above it carry a relative error of order `ε·(σ₁/σ)²`.
+    pub resolution: f64,
     /// Leading principal components as functions of position: `components[c][i]` is
     /// `σ_c · u_c[i]`, the coordinate of centred row i along the c-th right singular
     /// vector, in the table's units. Sign fixed so the largest-magnitude entry is positive.
@@ -54,24 +59,26 @@ pub struct Spectrum {
 /// ```
 ///
 /// `k` leading components are returned (clamped to min(rows, cols)). The decomposition
-/// goes through [`crate::linalg::leading_components`]. Errors: an empty table gives
+/// goes through [`crate::linalg::gram_spectrum`]: eigenvalues of the centred Gram
+/// matrix, no centred copy of the table; small singular values carry the relative error
+/// `ε·(σ₁/σ)²` documented there, far below what the effective rank, the energy fractions
+/// or a plot can show. Errors: an empty table gives
 /// [`LinalgError::Empty`], NaN or infinities give [`LinalgError::NonFinite`] (use
 /// `hygiene::finite_rows` first). A single row centres to zero: one singular value 0,
 /// effective rank 0, no energy fractions, a zero component.
 pub fn spectrum(table: ArrayView2<f64>, k: usize) -> Result<Spectrum, LinalgError> {
     let (rows, cols) = table.dim();
-    if rows == 0 || cols == 0 {
-        return Err(LinalgError::Empty(rows, cols));
-    }
-    if table.iter().any(|v| !v.is_finite()) {
-        return Err(LinalgError::NonFinite);
-    }
-    let mean = table
-        .mean_axis(Axis(0))
-        .ok_or(LinalgError::Empty(rows, cols))?;
-    let centred: Array2<f64> = &table - &mean.insert_axis(Axis(0));
-    let dec = linalg::leading_components(centred.view(), k)?;
-    let total: f64 = dec.singular_values.iter().map(|s| s * s).sum();
+    let centred = linalg::gram_spectrum(table, k, linalg::Centring::Columns)?;
+    let resolution = centred.resolution;
+    let dec = centred.decomposition;
+    // Values below the resolution are rounding noise of the method: they count as zero
+    // in the summaries (their true size is somewhere between 0 and the resolution).
+    let resolved: Vec<f64> = dec
+        .singular_values
+        .iter()
+        .map(|&s| if s > resolution { s } else { 0.0 })
+        .collect();
+    let total: f64 = resolved.iter().map(|s| s * s).sum();
     let mut energy_top_k: Vec<EnergyFraction> = Vec::new();
     if total > 0.0 {
         for kk in ENERGY_KS {
@@ -79,7 +86,7 @@ pub fn spectrum(table: ArrayView2<f64>, k: usize) -> Result<Spectrum, LinalgErro
             if energy_top_k.last().is_some_and(|e| e.k == kk) {
                 continue;
             }
-            let part: f64 = dec.singular_values[..kk].iter().map(|s| s * s).sum();
+            let part: f64 = resolved[..kk].iter().map(|s| s * s).sum();
             energy_top_k.push(EnergyFraction {
                 k: kk,
                 fraction: (part / total).min(1.0),
@@ -95,8 +102,9 @@ pub fn spectrum(table: ArrayView2<f64>, k: usize) -> Result<Spectrum, LinalgErro
     Ok(Spectrum {
         rows,
         cols,
-        effective_rank: effective_rank(&dec.singular_values),
+        effective_rank: effective_rank(&resolved),
         singular_values: dec.singular_values,
+        resolution,
         energy_top_k,
         components,
     })
@@ -136,7 +144,7 @@ pub fn effective_rank(singular_values: &[f64]) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use ndarray::array;
+    use ndarray::{Array2, array};
 
     #[test]
     fn effective_rank_of_equal_values_is_their_count() {

@@ -53,6 +53,9 @@ use faer::linalg::matmul::matmul;
 use faer::{Accum, Mat, MatRef, Par};
 use ndarray::{Array1, Array2, ArrayView2, s};
 
+mod gram;
+pub use gram::{Centring, GramSpectrum, gram_spectrum};
+
 #[cfg(not(feature = "lapack"))]
 mod faer_backend;
 #[cfg(not(feature = "lapack"))]
