@@ -4,6 +4,7 @@
 
 pub mod grid;
 pub mod hygiene;
+mod lagged;
 pub mod neighbours;
 pub mod norms;
 pub mod periodicity;

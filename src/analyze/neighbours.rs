@@ -55,31 +55,41 @@ pub struct LocalityProfile {
 ///
 /// ```text
 /// m_k = mean_{i = 0 .. n−1−k} cos(x_i, x_{i+k})
+///     = Σ_i Σ_j x̂[i, j]·x̂[i+k, j] / #pairs        x̂_i = x_i / ‖x_i‖
 /// ```
 ///
-/// For an exact sinusoid table `m_k = mean_i cos(k·ω_i)` (check-values §1.3). Pairs with a
-/// zero or non-finite row are skipped. Fewer than two rows give empty lists.
+/// For an exact sinusoid table `m_k = mean_i cos(k·ω_i)` (check-values §1.3). The sums
+/// over pairs come from one FFT per pair of columns of the row-normalised table
+/// ([`super::lagged`]; rounding of order 1e-15 per cosine), so the cost does not grow
+/// with `max_distance`. Pairs with a zero or non-finite row are skipped. Fewer than two
+/// rows give empty lists.
 pub fn locality_profile(table: ArrayView2<f64>, max_distance: usize) -> LocalityProfile {
-    let n = table.nrows();
+    let (n, d) = table.dim();
     let kmax = max_distance.min(n.saturating_sub(1));
-    let (norms, ok) = row_norms(table);
-    let mut distances = Vec::with_capacity(kmax);
-    let mut mean_cosine = Vec::with_capacity(kmax);
-    let mut pairs = Vec::with_capacity(kmax);
-    for k in 1..=kmax {
-        let mut sum = 0.0;
-        let mut count = 0usize;
-        for i in 0..n - k {
-            if ok[i] && ok[i + k] {
-                let c = table.row(i).dot(&table.row(i + k)) / (norms[i] * norms[i + k]);
-                sum += c.clamp(-1.0, 1.0);
-                count += 1;
-            }
-        }
-        distances.push(k);
-        mean_cosine.push((count > 0).then(|| sum / count as f64));
-        pairs.push(count);
+    if kmax == 0 {
+        return LocalityProfile {
+            distances: Vec::new(),
+            mean_cosine: Vec::new(),
+            pairs: Vec::new(),
+        };
     }
+    let (norms, ok) = row_norms(table);
+    let sums = super::lagged::lagged_sums(
+        n,
+        d,
+        |i, j| if ok[i] { table[[i, j]] / norms[i] } else { 0.0 },
+        kmax,
+    );
+    let distances: Vec<usize> = (1..=kmax).collect();
+    let pairs: Vec<usize> = distances
+        .iter()
+        .map(|&k| (0..n - k).filter(|&i| ok[i] && ok[i + k]).count())
+        .collect();
+    let mean_cosine = pairs
+        .iter()
+        .zip(&sums[1..])
+        .map(|(&count, s)| (count > 0).then(|| (s / count as f64).clamp(-1.0, 1.0)))
+        .collect();
     LocalityProfile {
         distances,
         mean_cosine,

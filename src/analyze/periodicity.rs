@@ -29,35 +29,61 @@ pub struct Autocorrelation {
 /// r(k)   = mean_j r_j(k)
 /// ```
 ///
-/// Columns holding non-finite values or with zero variance are skipped. Returns None when
-/// no column is usable or the table has fewer than 2 rows.
+/// The sums over lags come from one FFT per pair of columns ([`super::lagged`]), so the
+/// cost does not grow with `max_lag`. Columns holding non-finite values or with zero
+/// variance are skipped. Returns None when no column is usable or the table has fewer
+/// than 2 rows.
 pub fn autocorrelation(table: ArrayView2<f64>, max_lag: usize) -> Option<Autocorrelation> {
-    let n = table.nrows();
+    let (n, d) = table.dim();
     let kmax = max_lag.min(n.saturating_sub(1));
     if kmax == 0 {
         return None;
     }
-    let mut sum = vec![0.0; kmax];
-    let mut used = 0usize;
-    for col in table.columns() {
-        if col.iter().any(|v| !v.is_finite()) {
-            continue;
+    // Column means and sums of squares in row order (the table is stored row by row).
+    let mut mean = vec![0.0; d];
+    let mut finite = vec![true; d];
+    for row in table.rows() {
+        for (j, v) in row.iter().enumerate() {
+            finite[j] &= v.is_finite();
+            mean[j] += v;
         }
-        let m = col.sum() / n as f64;
-        let c: Vec<f64> = col.iter().map(|v| v - m).collect();
-        let denom: f64 = c.iter().map(|v| v * v).sum();
-        if denom.is_nan() || denom <= 0.0 {
-            continue;
-        }
-        for (k, s) in (1..=kmax).zip(sum.iter_mut()) {
-            let num: f64 = c[..n - k].iter().zip(&c[k..]).map(|(a, b)| a * b).sum();
-            *s += num / denom;
-        }
-        used += 1;
     }
-    (used > 0).then(|| Autocorrelation {
+    mean.iter_mut().for_each(|m| *m /= n as f64);
+    let mut denom = vec![0.0; d];
+    for row in table.rows() {
+        for (j, v) in row.iter().enumerate() {
+            denom[j] += (v - mean[j]) * (v - mean[j]);
+        }
+    }
+    // Scale each usable column to unit sum of squares so its lagged sums are r_j(k).
+    let scale: Vec<f64> = (0..d)
+        .map(|j| {
+            if finite[j] && denom[j] > 0.0 {
+                1.0 / denom[j].sqrt()
+            } else {
+                0.0
+            }
+        })
+        .collect();
+    let used = scale.iter().filter(|&&s| s > 0.0).count();
+    if used == 0 {
+        return None;
+    }
+    let sums = super::lagged::lagged_sums(
+        n,
+        d,
+        |i, j| {
+            if scale[j] > 0.0 {
+                (table[[i, j]] - mean[j]) * scale[j]
+            } else {
+                0.0
+            }
+        },
+        kmax,
+    );
+    Some(Autocorrelation {
         lags: (1..=kmax).collect(),
-        mean: sum.iter().map(|s| s / used as f64).collect(),
+        mean: sums[1..].iter().map(|s| s / used as f64).collect(),
         columns_used: used,
     })
 }
