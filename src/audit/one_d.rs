@@ -2,6 +2,8 @@
 //! profile analyses, the untrained-row detection or the formula fit, and turns their
 //! numbers into a verdict and findings with evidence and limits.
 
+use std::borrow::Cow;
+
 use ndarray::{Array2, s};
 use serde::Serialize;
 
@@ -26,6 +28,9 @@ pub const COMPONENTS: usize = 8;
 pub const COSINE_MATRIX_SIDE: usize = 256;
 /// Largest distance of the locality profile.
 pub const LOCALITY_DISTANCE: usize = 128;
+/// Largest lag of the autocorrelation (longer periods show in the waves of the leading
+/// components).
+pub const AUTOCORRELATION_LAGS: usize = 512;
 
 /// The shape of a 1-D table along position: norms, neighbourhood, waves, periodicity,
 /// hygiene.
@@ -98,10 +103,15 @@ fn declared_rows(name: &str, config: Option<&ConfigHints>) -> Option<(usize, Str
     Some((declared + offset, why))
 }
 
-fn profile(table: &Array2<f64>) -> (Profile, Array2<f64>, Vec<usize>) {
+fn profile(table: &Array2<f64>) -> (Profile, Cow<'_, Array2<f64>>, Vec<usize>) {
     let hygiene = hygiene::hygiene(table.view());
-    let finite = hygiene::finite_rows(table.view());
-    let t = finite.table;
+    // Copy the table only when some rows must be dropped.
+    let (t, kept) = if hygiene.non_finite_count == 0 {
+        (Cow::Borrowed(table), (0..table.nrows()).collect())
+    } else {
+        let finite = hygiene::finite_rows(table.view());
+        (Cow::Owned(finite.table), finite.indices)
+    };
     let n = t.nrows();
     let profile = Profile {
         analysed_rows: n,
@@ -113,13 +123,14 @@ fn profile(table: &Array2<f64>) -> (Profile, Array2<f64>, Vec<usize>) {
         ),
         cosine_matrix: neighbours::cosine_matrix(t.view(), COSINE_MATRIX_SIDE),
         waves: Vec::new(),
-        // Lags up to 128 rows: the direct sum costs d·n·lags, and longer periods show in
-        // the waves of the leading components anyway.
-        autocorrelation: periodicity::autocorrelation(t.view(), (n / 2).clamp(1, 128)),
+        autocorrelation: periodicity::autocorrelation(
+            t.view(),
+            (n / 2).clamp(1, AUTOCORRELATION_LAGS),
+        ),
         repeated_block: periodicity::repeated_block(t.view(), 1e-6),
         hygiene,
     };
-    (profile, t, finite.indices)
+    (profile, t, kept)
 }
 
 fn range_text(r: [usize; 2]) -> String {
