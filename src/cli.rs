@@ -4,15 +4,102 @@ use std::path::PathBuf;
 
 use clap::{Parser, Subcommand};
 
-/// Finds the position tables of a transformer checkpoint and tells you what they are:
-/// which positions were trained, whether a fixed table is the formula it claims, whether
-/// rotary frequencies were rescaled, and how tables moved between checkpoints.
+// The "Examples:" blocks are macros, not consts, so that `concat!` can join them with
+// the notes of the long help (`--help`), while `-h` shows the examples alone. Every
+// example line is a real command line: the tests below parse each one with this
+// definition.
+
+macro_rules! main_examples {
+    () => {
+        "Examples:
+  posaudit scan model.safetensors
+      which position tables the checkpoint holds, and why each was recognised
+  posaudit audit examples/demo/checkpoints/showcase --out demo-report
+      analyse every table; demo-report/report.md holds the findings and plots
+  posaudit compare run/step-1000 run/step-2000 run/step-4000
+      how the tables moved between checkpoints of one run"
+    };
+}
+
+macro_rules! scan_examples {
+    () => {
+        "Examples:
+  posaudit scan model.safetensors
+      list the position tables and why each was recognised
+  posaudit scan checkpoints/step-20000
+      a folder: one model file, or shards with or without their *.index.json
+  posaudit scan model.gguf --json > tables.json
+      the same as one JSON document (schema posaudit/scan/v1)
+  posaudit scan model.safetensors --table encoder.pos_table
+      also classify a tensor that the detector passed over"
+    };
+}
+
+macro_rules! audit_examples {
+    () => {
+        "Examples:
+  posaudit audit examples/demo/checkpoints/showcase
+      summary on the terminal (the invented demo checkpoint in the source tree)
+  posaudit audit checkpoints/step-20000 --out audit-report
+      also write audit-report/report.md with its SVG plots, and report.json
+  posaudit audit checkpoints/step-20000 --json --fail-on warning > audit.json
+      CI gate: exit 1 when a warning or error finding exists
+  posaudit audit model.safetensors --table encoder.pos_table
+      also analyse a tensor that the detector passed over
+  posaudit audit big-model/ --threads 4
+      use four threads for the SVDs of large tables"
+    };
+}
+
+macro_rules! compare_examples {
+    () => {
+        "Examples:
+  posaudit compare run/step-1000 run/step-2000 run/step-4000 run/step-8000
+      how the tables moved along one run, with a timeline per position
+  posaudit compare run-a/step-8000 run-b/step-8000 --out seeds-report
+      two seeds: per-row change against rotation-invariant similarity
+  posaudit compare old.safetensors new.bin --table model.embed_positions.weight --json
+      one table across two formats, as JSON (schema posaudit/compare/v1)"
+    };
+}
+
+/// The sentence on exit codes, shared by the long help of every command.
+macro_rules! exit_codes {
+    () => {
+        "Exit codes: 0 done; 1 done, but a finding at or above --fail-on exists
+(audit only); 2 the input or the arguments could not be used (one line on stderr
+naming the file and the problem). The checkpoint is opened read-only and never
+modified."
+    };
+}
+
+/// Find the position tables of a transformer checkpoint and check them
 ///
-/// The checkpoint is opened read-only and never modified.
-/// Exit codes: 0 done; 1 done but a finding at or above --fail-on exists;
-/// 2 the input or the arguments could not be used.
+/// posaudit opens a checkpoint read-only (safetensors, PyTorch zip, NumPy
+/// .npy/.npz, GGUF; one file or a folder of shards), finds every position
+/// table by itself (learned absolute tables, fixed sine/cosine tables, 2-D
+/// patch grids, relative-bias tables, stored rotary frequencies,
+/// position-id buffers) and analyses them: which positions were never
+/// trained, whether a fixed table is the formula it claims, whether rotary
+/// frequencies were rescaled, how tables moved between checkpoints.
+///
+/// Findings are statistical evidence from the weights alone: confirm them
+/// on real inputs before acting on them (README.md, "How to read the
+/// findings").
 #[derive(Debug, Parser)]
-#[command(name = "posaudit", version, propagate_version = true)]
+#[command(
+    name = "posaudit",
+    version,
+    propagate_version = true,
+    verbatim_doc_comment,
+    after_help = concat!(main_examples!(), "\n\nRun `posaudit <COMMAND> --help` for its options."),
+    after_long_help = concat!(
+        main_examples!(),
+        "\n\n",
+        exit_codes!(),
+        "\n\nRun `posaudit <COMMAND> --help` for its options."
+    )
+)]
 pub struct Cli {
     /// What to do.
     #[command(subcommand)]
@@ -22,21 +109,61 @@ pub struct Cli {
 /// The subcommands.
 #[derive(Debug, Subcommand)]
 pub enum Command {
-    /// List the position tables of a checkpoint (reads headers and a few sampled rows).
+    /// List the position tables of a checkpoint and why each was recognised
     ///
-    /// Example: posaudit scan path/to/model.safetensors
-    ///          posaudit scan path/to/sharded-folder --json
+    /// Reads the headers and at most 24 sampled rows of each candidate tensor,
+    /// so it takes the same time on a 100 MB and a 100 GB checkpoint. Prints
+    /// one line per table: name, kind (learned-absolute, fixed-sinusoidal,
+    /// learned-grid-2d, relative-bias, rotary-frequencies, position-ids),
+    /// shape, element type, file, and why (the name, the shape, the sampled
+    /// content). A config.json beside the weights is read for hints; a broken
+    /// one is a warning, not a failure.
+    #[command(
+        verbatim_doc_comment,
+        after_help = scan_examples!(),
+        after_long_help = concat!(scan_examples!(), "\n\n", exit_codes!())
+    )]
     Scan(ScanArgs),
-    /// Analyse every position table and write the findings report.
+    /// Analyse every position table and report the findings
     ///
-    /// Examples:
-    ///   posaudit audit model.safetensors                      summary on the terminal
-    ///   posaudit audit ckpt/ --out audit-report               report.json, report.md, plots
-    ///   posaudit audit ckpt/ --json --fail-on warning         CI gate: exit 1 on warnings
+    /// Reads each detected table and runs the analysis that fits its kind.
+    /// Learned tables: which rows look untrained (several independent signals,
+    /// with their numbers), norms, neighbour cosines, the spectrum and its
+    /// leading components, zero, duplicate and non-finite rows. Fixed
+    /// sine/cosine tables: the formula fitted (layout, base, offset) and the
+    /// error against it, including angles computed in bf16/f16. Patch grids,
+    /// relative-bias tables, rotary frequencies and position-id buffers:
+    /// layout, unreachable buckets, the rotary scaling recipe, consecutive ids.
+    ///
+    /// Prints a summary table and the warning and error findings. Each finding
+    /// has a code, a severity (info, warning, error), the rows it concerns, its
+    /// evidence and its limits; README.md explains every code and what to do
+    /// about it.
+    #[command(
+        verbatim_doc_comment,
+        after_help = audit_examples!(),
+        after_long_help = concat!(audit_examples!(), "\n\n", exit_codes!())
+    )]
     Audit(AuditArgs),
-    /// Compare the position tables of two or more checkpoints (steps of one run, or runs).
+    /// Compare the position tables of two or more checkpoints
     ///
-    /// Example: posaudit compare step-1000 step-2000 step-3000 --out report/
+    /// Checkpoints are compared in the order given: steps of one run (oldest
+    /// first), or runs with other seeds or recipes; formats may differ. Tables
+    /// are matched by name, or else by kind and shape. For each consecutive
+    /// pair (and first to last with three or more) it reports the change of
+    /// every row, the rows that moved most, the rows that did not change
+    /// (bit-identical, or identical up to one common factor, which is what
+    /// weight decay alone does to rows that get no gradient: finding
+    /// `unchanged-rows`), and similarities that ignore rotations of the
+    /// embedding space (principal angles, linear CKA, orthogonal Procrustes,
+    /// each with its chance level). With three or more checkpoints, a timeline
+    /// says when each position first moved. Checkpoints are read one at a time,
+    /// so memory does not grow with their number.
+    #[command(
+        verbatim_doc_comment,
+        after_help = compare_examples!(),
+        after_long_help = concat!(compare_examples!(), "\n\n", exit_codes!())
+    )]
     Compare(CompareArgs),
 }
 
@@ -45,67 +172,125 @@ pub enum Command {
 pub enum FailOn {
     /// Exit 1 when any warning or error finding exists.
     Warning,
-    /// Exit 1 only when an error finding exists.
+    /// Exit 1 only when an error finding exists (e.g. non-finite values).
     Error,
 }
 
 /// Arguments of `audit`.
 #[derive(Debug, clap::Args)]
 pub struct AuditArgs {
-    /// A checkpoint file, or a folder holding one.
-    #[arg(value_name = "PATH")]
+    /// A checkpoint file, or a folder holding one
+    ///
+    /// A single .safetensors, .bin/.pt/.pth/.ckpt (PyTorch zip), .npy/.npz or
+    /// .gguf file; or a folder with one model file, or shards with or without
+    /// their *.index.json. A config.json beside the weights is read for hints
+    /// (declared positions, widths, rotary settings, initializer range).
+    #[arg(value_name = "PATH", verbatim_doc_comment)]
     pub path: PathBuf,
-    /// Treat this tensor as a position table even if the detector would not (repeatable).
-    #[arg(long = "table", value_name = "NAME")]
+    /// Also analyse this tensor as a position table (repeatable)
+    ///
+    /// For a table the detector passed over (an unusual name, an unusual
+    /// shape). Give the exact tensor name, as `posaudit scan` or the
+    /// checkpoint's index lists it; an unknown name is an error that suggests
+    /// the closest names. The detected tables are analysed as well. Default:
+    /// only the detected tables.
+    #[arg(long = "table", value_name = "NAME", verbatim_doc_comment)]
     pub tables: Vec<String>,
-    /// Write report.json, report.md and the SVG plots it links into this folder (created
-    /// if needed; files are replaced atomically).
-    #[arg(long, value_name = "DIR")]
+    /// Write report.md, the SVG plots it links, and report.json into DIR
+    ///
+    /// DIR is created if needed and checked for writing before any analysis
+    /// starts. Each file is written to a temporary file and then renamed, so an
+    /// interrupted run never leaves a half-written report. Files of the same
+    /// names are replaced; other files in DIR are left alone. The summary is
+    /// still printed. Default: no files.
+    #[arg(long, value_name = "DIR", verbatim_doc_comment)]
     pub out: Option<PathBuf>,
-    /// Print the JSON document (schema posaudit/audit/v1) on stdout and nothing else there.
-    #[arg(long)]
+    /// Print the JSON document on stdout instead of the summary
+    ///
+    /// Schema posaudit/audit/v1: the checkpoint, the config hints, and per
+    /// table its kind, shape, analysis and findings (code, severity, positions,
+    /// message, evidence, limits). Nothing else goes to stdout, so it can be
+    /// redirected to a file or piped into another program. Combines with --out
+    /// and --fail-on.
+    #[arg(long, verbatim_doc_comment)]
     pub json: bool,
-    /// Exit with code 1 when a finding at or above this level exists (for CI gates).
-    #[arg(long, value_name = "LEVEL", value_enum)]
+    /// Exit with code 1 when a finding at or above LEVEL exists (CI gate)
+    ///
+    /// `warning` fails on warnings and errors, `error` only on errors. The
+    /// report is printed and written either way. Default: exit 0 whatever the
+    /// findings (2 still means the input or the arguments could not be used).
+    #[arg(long, value_name = "LEVEL", value_enum, verbatim_doc_comment)]
     pub fail_on: Option<FailOn>,
-    /// Threads for the linear algebra (default 1: the fastest on small shared machines).
-    #[arg(long, value_name = "N", default_value_t = 1)]
+    /// Threads for the linear algebra
+    ///
+    /// 1 (the default) is the fastest on small or shared machines. More threads
+    /// help only on large tables (thousands of rows and columns) with idle
+    /// cores; the last digits of the numbers may then differ from a one-thread
+    /// run. With the `lapack` build it also sets OpenBLAS's thread count.
+    #[arg(long, value_name = "N", default_value_t = 1, verbatim_doc_comment)]
     pub threads: usize,
 }
 
 /// Arguments of `scan`.
 #[derive(Debug, clap::Args)]
 pub struct ScanArgs {
-    /// A checkpoint file, or a folder holding one (a single file, or shards with or
-    /// without their *.index.json).
-    #[arg(value_name = "PATH")]
+    /// A checkpoint file, or a folder holding one
+    ///
+    /// A single .safetensors, .bin/.pt/.pth/.ckpt (PyTorch zip), .npy/.npz or
+    /// .gguf file; or a folder with one model file, or shards with or without
+    /// their *.index.json.
+    #[arg(value_name = "PATH", verbatim_doc_comment)]
     pub path: PathBuf,
-    /// Treat this tensor as a position table even if the detector would not (repeatable).
-    /// An unknown name is an error that lists the closest names.
-    #[arg(long = "table", value_name = "NAME")]
+    /// Also list this tensor as a position table (repeatable)
+    ///
+    /// For a table the detector passed over: it is classified by its shape and
+    /// content and listed with "forced with --table". Give the exact tensor
+    /// name; an unknown name is an error that lists the closest names. Default:
+    /// only the detected tables.
+    #[arg(long = "table", value_name = "NAME", verbatim_doc_comment)]
     pub tables: Vec<String>,
-    /// Print the JSON document (schema posaudit/scan/v1) on stdout and nothing else there.
-    #[arg(long)]
+    /// Print the JSON document on stdout instead of the table
+    ///
+    /// Schema posaudit/scan/v1: the checkpoint (path, format, files, tensors,
+    /// bytes) and per table its name, kind, shape, dtype, file and why. Nothing
+    /// else goes to stdout.
+    #[arg(long, verbatim_doc_comment)]
     pub json: bool,
 }
 
 /// Arguments of `compare`.
 #[derive(Debug, clap::Args)]
 pub struct CompareArgs {
-    /// Two or more checkpoints (files or folders, any mix of formats), in order: each is
-    /// compared with the next, and the first with the last when there are three or more.
-    #[arg(value_name = "PATH", num_args = 2.., required = true)]
+    /// Two or more checkpoints (files or folders), oldest first
+    ///
+    /// Each is compared with the next, and the first with the last when there
+    /// are three or more. Any mix of formats. Shell brace expansion lists a
+    /// run's steps in order: run-a/step-{1000,2000,4000}.
+    #[arg(value_name = "PATH", num_args = 2.., required = true, verbatim_doc_comment)]
     pub paths: Vec<PathBuf>,
-    /// Compare only this tensor (repeatable), treated as a position table even if the
-    /// detector would not. It must exist in at least one checkpoint.
-    #[arg(long = "table", value_name = "NAME")]
+    /// Compare only this tensor (repeatable)
+    ///
+    /// Restricts the comparison to the named tensors, treated as position
+    /// tables even if the detector would not. Each name must exist in at least
+    /// one checkpoint (an unknown name is an error that suggests the closest
+    /// ones); a checkpoint without it is reported with a `table-missing`
+    /// finding. Default: every detected table, matched across checkpoints.
+    #[arg(long = "table", value_name = "NAME", verbatim_doc_comment)]
     pub tables: Vec<String>,
-    /// Write report.json, report.md and the SVG plots it links into this folder
-    /// (created if needed; each file written atomically).
-    #[arg(long, value_name = "DIR")]
+    /// Write report.md, the SVG plots it links, and report.json into DIR
+    ///
+    /// DIR is created if needed and checked for writing before any checkpoint
+    /// is read; each file is written atomically (temporary file, then rename).
+    /// Files of the same names are replaced; other files in DIR are left alone.
+    /// Default: no files.
+    #[arg(long, value_name = "DIR", verbatim_doc_comment)]
     pub out: Option<PathBuf>,
-    /// Print the JSON document (schema posaudit/compare/v1) on stdout and nothing else there.
-    #[arg(long)]
+    /// Print the JSON document on stdout instead of the summary
+    ///
+    /// Schema posaudit/compare/v1: the checkpoints, and per table and step the
+    /// change of every row, the unchanged ranges, the similarities and the
+    /// findings. Nothing else goes to stdout. Combines with --out.
+    #[arg(long, verbatim_doc_comment)]
     pub json: bool,
 }
 
@@ -145,6 +330,145 @@ mod tests {
             panic!("scan expected")
         };
         assert_eq!(args.tables, vec!["a", "b"]);
+    }
+
+    /// The example lines (`  posaudit ...`) of a help text's "Examples:" block.
+    fn example_lines(help: &str) -> Vec<String> {
+        let block = help
+            .split_once("Examples:\n")
+            .map(|(_, rest)| rest)
+            .unwrap_or("");
+        block
+            .lines()
+            .take_while(|l| !l.trim().is_empty())
+            .filter(|l| l.trim_start().starts_with("posaudit "))
+            .map(|l| l.trim().to_string())
+            .collect()
+    }
+
+    /// The arguments of an example line as a shell would pass them, up to a
+    /// redirection or pipe (the examples use no quotes).
+    fn example_argv(line: &str) -> Vec<&str> {
+        line.split_whitespace()
+            .take_while(|w| !matches!(*w, ">" | "|"))
+            .collect()
+    }
+
+    fn user_args(cmd: &clap::Command) -> Vec<clap::Arg> {
+        cmd.get_arguments()
+            .filter(|a| !matches!(a.get_id().as_str(), "help" | "version"))
+            .cloned()
+            .collect()
+    }
+
+    #[test]
+    fn every_subcommand_help_explains_every_option_and_shows_examples() {
+        let mut cli = Cli::command();
+        cli.build();
+        let names: Vec<String> = cli
+            .get_subcommands()
+            .map(|c| c.get_name().to_string())
+            .filter(|n| n != "help")
+            .collect();
+        assert_eq!(names, ["scan", "audit", "compare"]);
+        for name in &names {
+            let sub = cli.find_subcommand_mut(name).unwrap();
+            let long = sub.render_long_help().to_string();
+            let short = sub.render_help().to_string();
+            let args = user_args(sub);
+            assert!(!args.is_empty(), "{name} has arguments");
+            for arg in &args {
+                let id = arg.get_id().as_str();
+                // Every argument has a one-line help and a longer explanation.
+                let help = arg.get_help().map(|h| h.to_string()).unwrap_or_default();
+                let more = arg
+                    .get_long_help()
+                    .map(|h| h.to_string())
+                    .unwrap_or_default();
+                assert!(!help.trim().is_empty(), "{name}: `{id}` has no help");
+                assert!(
+                    more.len() > help.len() + 40,
+                    "{name}: `{id}` has no long help beyond its summary"
+                );
+                // clap indents continuation lines: compare with whitespace collapsed.
+                let flat = |t: &str| t.split_whitespace().collect::<Vec<_>>().join(" ");
+                assert!(
+                    flat(&long).contains(&flat(&more)),
+                    "{name} --help omits `{id}`'s long help"
+                );
+                match arg.get_long() {
+                    Some(flag) => {
+                        let flag = format!("--{flag}");
+                        assert!(long.contains(&flag), "{name} --help omits {flag}");
+                        // Every option is shown in use in at least one example.
+                        assert!(
+                            example_lines(&long)
+                                .iter()
+                                .any(|l| example_argv(l).contains(&flag.as_str())),
+                            "no example of `posaudit {name}` uses {flag}"
+                        );
+                    }
+                    None => {
+                        let value = arg.get_value_names().unwrap()[0].to_string();
+                        assert!(long.contains(&format!("<{value}>")), "{name}: <{value}>");
+                    }
+                }
+            }
+            // Examples in both -h and --help; --help adds the exit codes.
+            for help in [&short, &long] {
+                assert!(help.contains("Examples:"), "{name} help has no examples");
+                assert!(example_lines(help).len() >= 2, "{name}: too few examples");
+            }
+            assert!(long.contains("Exit codes: 0 done; 1"), "{name}");
+        }
+    }
+
+    #[test]
+    fn every_example_is_a_valid_command_line_of_its_subcommand() {
+        let mut cli = Cli::command();
+        cli.build();
+        let mut blocks = vec![(None, cli.render_long_help().to_string())];
+        for name in ["scan", "audit", "compare"] {
+            let sub = cli.find_subcommand_mut(name).unwrap();
+            blocks.push((Some(name), sub.render_long_help().to_string()));
+        }
+        let mut checked = 0;
+        for (name, help) in blocks {
+            let lines = example_lines(&help);
+            assert!(!lines.is_empty(), "{name:?}: no examples");
+            for line in lines {
+                let argv = example_argv(&line);
+                if let Err(e) = Cli::try_parse_from(&argv) {
+                    panic!("example `{line}` does not parse: {e}");
+                }
+                if let Some(name) = name {
+                    assert_eq!(argv[1], name, "`{line}` is not a `{name}` example");
+                }
+                checked += 1;
+            }
+        }
+        assert!(checked >= 10, "{checked} examples");
+    }
+
+    #[test]
+    fn scan_help_names_every_kind() {
+        // The kind strings are contract strings (design.md, "Kinds of table").
+        let mut cli = Cli::command();
+        let help = cli
+            .find_subcommand_mut("scan")
+            .unwrap()
+            .render_long_help()
+            .to_string();
+        for kind in [
+            "learned-absolute",
+            "fixed-sinusoidal",
+            "learned-grid-2d",
+            "relative-bias",
+            "rotary-frequencies",
+            "position-ids",
+        ] {
+            assert!(help.contains(kind), "scan --help omits {kind}");
+        }
     }
 
     #[test]

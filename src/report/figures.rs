@@ -166,19 +166,36 @@ fn one_d(t: &TableAudit, prefix: &str, out: &mut Vec<Figure>) {
         }
     }
     if let Some(sp) = &t.spectrum {
+        // Singular values below the usual numerical-rank tolerance
+        // (s_max · max(rows, cols) · ε, as numpy.linalg.matrix_rank uses) are rounding
+        // noise: one SVD backend returns 0, another 1e-17, which would stretch the log
+        // axis over sixteen decades. They are left out of the plot (and counted in the
+        // caption), so the figure is the same whichever backend computed it.
+        let s_max = sp.singular_values.iter().copied().fold(0.0, f64::max);
+        let tol = s_max * sp.rows.max(sp.cols) as f64 * f64::EPSILON;
+        let drawn: Vec<f64> = sp
+            .singular_values
+            .iter()
+            .copied()
+            .filter(|v| !(v.is_finite() && v.abs() <= tol))
+            .collect();
+        let hidden = sp.singular_values.len() - drawn.len();
         let s = plots::Spectrum {
             title: format!("Singular values of the mean-centred table — {short}"),
-            singular_values: sp.singular_values.clone(),
+            singular_values: drawn,
             effective_rank: Some(sp.effective_rank),
             width: plots::DEFAULT_WIDTH,
             height: plots::DEFAULT_HEIGHT,
         };
-        out.push(fig(
-            prefix,
-            "spectrum",
-            "Singular-value spectrum with the effective rank",
-            plots::spectrum_plot(&s),
-        ));
+        let caption = if hidden > 0 {
+            format!(
+                "Singular-value spectrum with the effective rank ({hidden} value(s) at \
+                 rounding level not drawn)"
+            )
+        } else {
+            "Singular-value spectrum with the effective rank".to_string()
+        };
+        out.push(fig(prefix, "spectrum", caption, plots::spectrum_plot(&s)));
         if !sp.components.is_empty() {
             let panels = sp
                 .components
