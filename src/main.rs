@@ -37,9 +37,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
         Command::Scan(args) => {
             let report = posaudit::scan::scan(&args.path, &args.tables)?;
             if args.json {
-                let mut json = serde_json::to_string_pretty(&report).map_err(|e| e.to_string())?;
-                json.push('\n');
-                emit(&json)?;
+                emit(&posaudit::report::output::json_text(&report)?)?;
             } else {
                 emit(&terminal::scan(&report))?;
             }
@@ -54,10 +52,7 @@ fn run(cli: Cli) -> Result<ExitCode, String> {
 }
 
 fn to_json<T: serde::Serialize>(value: &T) -> Result<String, String> {
-    let mut json = serde_json::to_string_pretty(value)
-        .map_err(|e| format!("cannot serialise the report: {e}"))?;
-    json.push('\n');
-    Ok(json)
+    posaudit::report::output::json_text(value)
 }
 
 fn audit(args: AuditArgs) -> Result<ExitCode, String> {

@@ -67,9 +67,7 @@ pub fn command(args: &CompareArgs) -> Result<String, String> {
 }
 
 fn to_json(report: &CompareReport) -> Result<String, String> {
-    let mut json = serde_json::to_string_pretty(report).map_err(|e| e.to_string())?;
-    json.push('\n');
-    Ok(json)
+    crate::report::output::json_text(report)
 }
 
 /// One version of a table held in memory.

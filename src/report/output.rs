@@ -81,3 +81,77 @@ mod tests {
         assert!(err.contains("plain-file") && !err.contains('\n'), "{err}");
     }
 }
+
+/// The JSON text of a report: indented objects, but arrays that hold only numbers,
+/// strings, booleans or nulls on one line (per-row signals are long; one number per line
+/// made reports ten times longer to scroll). Ends with a newline. Same document as
+/// `serde_json::to_string_pretty`, only the whitespace differs.
+pub fn json_text<T: serde::Serialize>(value: &T) -> Result<String, String> {
+    let value =
+        serde_json::to_value(value).map_err(|e| format!("cannot serialise the report: {e}"))?;
+    let mut out = String::new();
+    write_json(&value, 0, &mut out);
+    out.push('\n');
+    Ok(out)
+}
+
+fn write_json(v: &serde_json::Value, depth: usize, out: &mut String) {
+    use serde_json::Value;
+    let indent = |out: &mut String, d: usize| out.extend(std::iter::repeat_n("  ", d));
+    match v {
+        Value::Array(items) if items.is_empty() => out.push_str("[]"),
+        Value::Array(items) if items.iter().all(|x| !x.is_array() && !x.is_object()) => {
+            out.push('[');
+            for (i, x) in items.iter().enumerate() {
+                if i > 0 {
+                    out.push_str(", ");
+                }
+                out.push_str(&x.to_string());
+            }
+            out.push(']');
+        }
+        Value::Array(items) => {
+            out.push_str("[\n");
+            for (i, x) in items.iter().enumerate() {
+                indent(out, depth + 1);
+                write_json(x, depth + 1, out);
+                out.push_str(if i + 1 < items.len() { ",\n" } else { "\n" });
+            }
+            indent(out, depth);
+            out.push(']');
+        }
+        Value::Object(map) if map.is_empty() => out.push_str("{}"),
+        Value::Object(map) => {
+            out.push_str("{\n");
+            for (i, (k, x)) in map.iter().enumerate() {
+                indent(out, depth + 1);
+                out.push_str(&Value::String(k.clone()).to_string());
+                out.push_str(": ");
+                write_json(x, depth + 1, out);
+                out.push_str(if i + 1 < map.len() { ",\n" } else { "\n" });
+            }
+            indent(out, depth);
+            out.push('}');
+        }
+        scalar => out.push_str(&scalar.to_string()),
+    }
+}
+
+#[cfg(test)]
+mod json_tests {
+    use super::json_text;
+
+    #[test]
+    fn json_text_is_the_same_document_as_serde_json_pretty() {
+        let v = serde_json::json!({
+            "a": [1.5, 2, null, "x\"y"],
+            "b": {"c": [], "d": {}, "e": [[1, 2], {"f": true}]},
+            "g": 1e-300
+        });
+        let text = json_text(&v).unwrap();
+        assert!(text.contains("\"a\": [1.5, 2, null, \"x\\\"y\"]"), "{text}");
+        assert!(text.ends_with("}\n"));
+        let back: serde_json::Value = serde_json::from_str(&text).unwrap();
+        assert_eq!(back, v);
+    }
+}
