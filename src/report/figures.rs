@@ -166,18 +166,15 @@ fn one_d(t: &TableAudit, prefix: &str, out: &mut Vec<Figure>) {
         }
     }
     if let Some(sp) = &t.spectrum {
-        // Singular values below the usual numerical-rank tolerance
-        // (s_max · max(rows, cols) · ε, as numpy.linalg.matrix_rank uses) are rounding
-        // noise: one SVD backend returns 0, another 1e-17, which would stretch the log
-        // axis over sixteen decades. They are left out of the plot (and counted in the
-        // caption), so the figure is the same whichever backend computed it.
-        let s_max = sp.singular_values.iter().copied().fold(0.0, f64::max);
-        let tol = s_max * sp.rows.max(sp.cols) as f64 * f64::EPSILON;
+        // Values at or below the spectrum's resolution (sqrt(p·ε)·σ₁, see
+        // linalg::gram) are rounding noise of the method, not properties of the table:
+        // they are left out of the plot (and counted in the caption), which also keeps
+        // the figure the same whichever backend computed it.
         let drawn: Vec<f64> = sp
             .singular_values
             .iter()
             .copied()
-            .filter(|v| !(v.is_finite() && v.abs() <= tol))
+            .filter(|v| !(v.is_finite() && *v <= sp.resolution))
             .collect();
         let hidden = sp.singular_values.len() - drawn.len();
         let s = plots::Spectrum {
@@ -189,8 +186,8 @@ fn one_d(t: &TableAudit, prefix: &str, out: &mut Vec<Figure>) {
         };
         let caption = if hidden > 0 {
             format!(
-                "Singular-value spectrum with the effective rank ({hidden} value(s) at \
-                 rounding level not drawn)"
+                "Singular-value spectrum with the effective rank ({hidden} value(s) below \
+                 the numerical resolution not drawn)"
             )
         } else {
             "Singular-value spectrum with the effective rank".to_string()
