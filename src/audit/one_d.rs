@@ -331,7 +331,11 @@ fn learned(
                     config.and_then(|c| c.model_type.as_deref()).unwrap_or("?")
                 )
             } else {
-                format!("{} look untrained: never indexed, or only very rarely.", range_text(r))
+                format!(
+                    "{} {} untrained: never indexed, or only very rarely.",
+                    range_text(r),
+                    if r[1] == r[0] + 1 { "looks" } else { "look" }
+                )
             },
             evidence: evidence.clone(),
             limits: limits.into(),
@@ -375,12 +379,21 @@ fn learned(
         .collect::<Vec<f64>>();
     let median_cos = median(&smooth);
     audit.verdict = match report.first {
-        Some(f) => format!(
-            "trained rows 0..{}, untrained tail from row {} ({} rows)",
-            to_table([f, f + 1])[0],
-            to_table([f, f + 1])[0],
-            report.count
-        ),
+        Some(f) => {
+            let start = to_table([f, f + 1])[0];
+            let tail = n_all - start;
+            let others = report
+                .count
+                .saturating_sub(report.ranges.last().map_or(0, |r| r[1] - r[0]));
+            format!(
+                "trained rows 0..{start}, untrained tail from row {start} ({tail} rows){}",
+                if others > 0 {
+                    format!("; {others} more untrained row(s) before it")
+                } else {
+                    String::new()
+                }
+            )
+        }
         None if report.count > 0 => format!(
             "{} untrained row(s) outside a tail; the rest trained",
             report.count
