@@ -60,7 +60,10 @@ pub fn command(args: &CompareArgs) -> Result<String, String> {
     } else {
         let mut text = render_terminal(&report);
         if let Some(dir) = &args.out {
-            text.push_str(&format!("\nreport written to {}\n", dir.display()));
+            text.push_str(&format!(
+                "\nreport written to {}\n",
+                dir.join("report.md").display()
+            ));
         }
         Ok(text)
     }
@@ -132,9 +135,9 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
             format!("; closest in the first: `{}`", close.join("`, `"))
         };
         return Err(format!(
-            "{}: no tensor named `{f}` in this or any of the other {} checkpoints{hint}",
+            "{}: no tensor named `{f}` in any of the {} checkpoints{hint}",
             paths[0].display(),
-            paths.len() - 1
+            paths.len()
         ));
     }
     let n_ckpt = paths.len();
@@ -155,7 +158,8 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
         let mut candidates: Vec<(&Detected, &TensorInfo)> = Vec::new();
         for d in &detection.tables {
             if d.kind == Kind::PositionIds {
-                if !ignored_ids.contains(&d.name) {
+                // Only worth saying when the user did not pick the tables explicitly.
+                if forced.is_empty() && !ignored_ids.contains(&d.name) {
                     warnings.push(format!(
                         "`{}`: position-id buffers are not compared (integers, not a table)",
                         d.name
@@ -387,14 +391,23 @@ fn finish(mut t: Tracked, n_ckpt: usize, options: &StepOptions) -> TableComparis
                 code: "table-missing",
                 severity: Severity::Warning,
                 positions: None,
-                message: format!(
-                    "`{}` is missing from checkpoint{} {}; it was compared across checkpoint{} {} only.",
-                    t.entry.name,
-                    if t.entry.missing_from.len() == 1 { "" } else { "s" },
-                    list(&t.entry.missing_from),
-                    if held.len() == 1 { "" } else { "s" },
-                    list(&held)
-                ),
+                message: if held.len() == 1 {
+                    format!(
+                        "`{}` is missing from checkpoint{} {}; it exists only in checkpoint {}, so nothing was compared.",
+                        t.entry.name,
+                        if t.entry.missing_from.len() == 1 { "" } else { "s" },
+                        list(&t.entry.missing_from),
+                        list(&held)
+                    )
+                } else {
+                    format!(
+                        "`{}` is missing from checkpoint{} {}; it was compared across checkpoints {} only.",
+                        t.entry.name,
+                        if t.entry.missing_from.len() == 1 { "" } else { "s" },
+                        list(&t.entry.missing_from),
+                        list(&held)
+                    )
+                },
                 evidence: "no tensor of that name, and no single unmatched table of the same kind and shape, in those checkpoints".into(),
                 limits: "A table renamed and reshaped at once cannot be matched; compare it explicitly with --table.".into(),
             },
