@@ -306,7 +306,7 @@ fn timeline_heatmap(t: &TableComparison) -> Option<String> {
     let values: Vec<f64> = tl.heatmap.mean.iter().flatten().copied().collect();
     let matrix = Matrix::new(rows, cols, values).ok()?;
     Some(heatmap(&Heatmap {
-        title: format!("{}: mean change per step and position", t.name),
+        title: format!("Mean change per step and position — {}", t.name),
         x_label: "position (row index)".into(),
         y_label: "step (row k: checkpoint pair k)".into(),
         matrix,

@@ -163,7 +163,9 @@ fn bar_space(range: Option<(f64, f64)>) -> f64 {
             max_label_width(&t, TICK_SIZE)
         })
         .unwrap_or(24.0);
-    18.0 + BAR_WIDTH + 6.0 + tick_w + 10.0 + 18.0
+    // gap, bar, tick marks and labels, gap, the rotated title (its glyphs extend about
+    // one label size right of its anchor), margin.
+    18.0 + BAR_WIDTH + 6.0 + tick_w + 14.0 + 2.0 * LABEL_SIZE + 8.0
 }
 
 fn draw_color_bar(svg: &mut Svg, bar: &ColorBar<'_>) {

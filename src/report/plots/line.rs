@@ -234,9 +234,11 @@ pub fn line_chart(chart: &LineChart) -> String {
     axes.grid(&mut svg);
 
     let mut non_positive = 0;
+    let mut drawn_points: Vec<(f64, f64)> = Vec::new();
     for (i, s) in chart.series.iter().enumerate() {
         let t = trace(&s.points, &x, &y);
         non_positive += t.non_positive;
+        drawn_points.extend(&t.points);
         if t.d.is_empty() {
             continue;
         }
@@ -257,12 +259,11 @@ pub fn line_chart(chart: &LineChart) -> String {
     let shade_label_lines = shade_labels.iter().map(|l| l.1 + 1).max().unwrap_or(0);
     draw_ref_lines(
         &mut svg,
-        &chart.h_lines,
-        &chart.v_lines,
-        &x,
-        &y,
+        (&chart.h_lines, &chart.v_lines),
+        (&x, &y),
         area,
         shade_label_lines,
+        &drawn_points,
     );
     draw_shade_labels(&mut svg, &shade_labels, area);
     axes.axes(&mut svg);
@@ -357,16 +358,16 @@ fn draw_shade_labels(svg: &mut Svg, labels: &[ShadeLabel<'_>], area: Area) {
     }
 }
 
-/// Dashed reference lines with labels: horizontal labels at the right end just
-/// above the line, vertical labels near the top beside the line.
+/// Dashed reference lines with labels: a horizontal line's label goes at the right or
+/// left end, just above or below the line, wherever it covers the fewest data points
+/// (right end above the line on ties); vertical labels near the top beside the line.
 fn draw_ref_lines(
     svg: &mut Svg,
-    h_lines: &[RefLine],
-    v_lines: &[RefLine],
-    x: &Axis,
-    y: &Axis,
+    (h_lines, v_lines): (&[RefLine], &[RefLine]),
+    (x, y): (&Axis, &Axis),
     area: Area,
     shade_label_lines: usize,
+    data: &[(f64, f64)],
 ) {
     for r in h_lines {
         let Some(py) = y.map(r.value) else { continue };
@@ -380,16 +381,40 @@ fn draw_ref_lines(
             "class=\"ref-line\" stroke-dasharray=\"6 4\"",
         );
         if !r.label.is_empty() {
-            let ly = if py - 5.0 < area.top + 12.0 {
-                py + 14.0
-            } else {
-                py - 5.0
-            };
+            let w = text_width(&r.label, SMALL_SIZE);
+            let above = py - 5.0;
+            let below = py + 14.0;
+            let mut best: Option<(usize, f64, f64, Anchor)> = None;
+            for (lx, anchor, x0) in [
+                (area.right - 5.0, Anchor::End, area.right - 5.0 - w),
+                (area.left + 5.0, Anchor::Start, area.left + 5.0),
+            ] {
+                for ly in [above, below] {
+                    if ly - SMALL_SIZE < area.top || ly > area.bottom - 2.0 {
+                        continue;
+                    }
+                    // Points inside the label's box, with a 2-pixel margin.
+                    let covered = data
+                        .iter()
+                        .filter(|(px, qy)| {
+                            *px >= x0 - 2.0
+                                && *px <= x0 + w + 2.0
+                                && *qy >= ly - SMALL_SIZE - 2.0
+                                && *qy <= ly + 4.0
+                        })
+                        .count();
+                    if best.is_none_or(|b| covered < b.0) {
+                        best = Some((covered, lx, ly, anchor));
+                    }
+                }
+            }
+            let (lx, ly, anchor) =
+                best.map_or((area.right - 5.0, below, Anchor::End), |b| (b.1, b.2, b.3));
             svg.text(
-                area.right - 5.0,
+                lx,
                 ly,
                 &r.label,
-                TextStyle::new(SMALL_SIZE, Anchor::End, "ref-label")
+                TextStyle::new(SMALL_SIZE, anchor, "ref-label")
                     .fill(REF_INK)
                     .halo(),
             );
