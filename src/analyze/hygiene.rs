@@ -48,19 +48,40 @@ pub fn hygiene(table: ArrayView2<f64>) -> Hygiene {
     let mut zero = vec![false; rows];
     let mut bad = vec![false; rows];
     let mut non_finite_count = 0usize;
-    let mut groups: HashMap<Vec<u64>, Vec<usize>> = HashMap::new();
+    // Rows are bucketed by a 64-bit fingerprint of their bit patterns (FNV-1a over the
+    // words), then each bucket is split by exact comparison: memory O(rows), not a copy
+    // of the table.
+    let mut buckets: HashMap<u64, Vec<usize>> = HashMap::new();
     for (i, row) in table.axis_iter(Axis(0)).enumerate() {
         zero[i] = row.iter().all(|&v| v == 0.0);
         let nf = row.iter().filter(|v| !v.is_finite()).count();
         non_finite_count += nf;
         bad[i] = nf > 0;
         if !zero[i] {
-            let key: Vec<u64> = row.iter().map(|v| v.to_bits()).collect();
-            groups.entry(key).or_default().push(i);
+            let fingerprint = row.iter().fold(0xcbf2_9ce4_8422_2325_u64, |h, v| {
+                (h ^ v.to_bits()).wrapping_mul(0x0000_0100_0000_01b3)
+            });
+            buckets.entry(fingerprint).or_default().push(i);
         }
     }
-    let mut duplicate_groups: Vec<Vec<usize>> =
-        groups.into_values().filter(|g| g.len() > 1).collect();
+    let same = |a: usize, b: usize| {
+        table
+            .row(a)
+            .iter()
+            .zip(table.row(b).iter())
+            .all(|(x, y)| x.to_bits() == y.to_bits())
+    };
+    let mut duplicate_groups: Vec<Vec<usize>> = Vec::new();
+    for members in buckets.into_values().filter(|m| m.len() > 1) {
+        let mut groups: Vec<Vec<usize>> = Vec::new();
+        for i in members {
+            match groups.iter_mut().find(|g| same(g[0], i)) {
+                Some(g) => g.push(i),
+                None => groups.push(vec![i]),
+            }
+        }
+        duplicate_groups.extend(groups.into_iter().filter(|g| g.len() > 1));
+    }
     duplicate_groups.sort_by_key(|g| g[0]);
     let zero_rows = ranges_from_mask(&zero);
     Hygiene {
