@@ -125,6 +125,46 @@ impl Dtype {
         bytes.get(start..start.checked_add(size)?)
     }
 
+    /// Decodes `out.len()` consecutive little-endian elements starting at element `start`
+    /// into `out`, for F64, F32, F16 and BF16; returns false (and leaves `out` for the
+    /// element-wise path) for other types or when the run is not inside `bytes`.
+    pub fn decode_le_run(&self, bytes: &[u8], start: usize, out: &mut [f64]) -> bool {
+        let Some(size) = self.size() else {
+            return false;
+        };
+        let Some(run) = start
+            .checked_mul(size)
+            .and_then(|a| Some((a, a.checked_add(out.len().checked_mul(size)?)?)))
+            .and_then(|(a, b)| bytes.get(a..b))
+        else {
+            return false;
+        };
+        match self {
+            Dtype::F64 => {
+                for (o, c) in out.iter_mut().zip(run.chunks_exact(8)) {
+                    *o = f64::from_le_bytes(c.try_into().unwrap_or([0; 8]));
+                }
+            }
+            Dtype::F32 => {
+                for (o, c) in out.iter_mut().zip(run.chunks_exact(4)) {
+                    *o = f64::from(f32::from_le_bytes(c.try_into().unwrap_or([0; 4])));
+                }
+            }
+            Dtype::F16 => {
+                for (o, c) in out.iter_mut().zip(run.chunks_exact(2)) {
+                    *o = half::f16::from_le_bytes([c[0], c[1]]).to_f64();
+                }
+            }
+            Dtype::BF16 => {
+                for (o, c) in out.iter_mut().zip(run.chunks_exact(2)) {
+                    *o = half::bf16::from_le_bytes([c[0], c[1]]).to_f64();
+                }
+            }
+            _ => return false,
+        }
+        true
+    }
+
     /// Decodes element `i` of `bytes` (little- or big-endian) as f64. Returns `None` when
     /// the element lies outside `bytes` or the type is not numeric.
     pub fn decode(&self, bytes: &[u8], i: usize, big_endian: bool) -> Option<f64> {

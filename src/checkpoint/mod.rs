@@ -515,6 +515,17 @@ impl Checkpoint {
                     format!("tensor `{}`: row {r} out of range ({nrows} rows)", t.name),
                 ));
             }
+            // Contiguous little-endian floats, the common case: decode the row's bytes in
+            // one pass (check_readable proved the whole tensor lies inside `bytes`).
+            if t.strides.is_none() && !t.big_endian {
+                let start = t.element_offset + r * ncols;
+                let mut row = out.row_mut(i);
+                if let Some(dst) = row.as_slice_mut()
+                    && t.dtype.decode_le_run(&bytes, start, dst)
+                {
+                    continue;
+                }
+            }
             for c in 0..ncols {
                 let idx = Self::storage_index(t, r * ncols + c);
                 out[[i, c]] = t
