@@ -154,6 +154,13 @@ pub struct UntrainedReport {
 const MIN_DIM: usize = 32;
 /// Smallest number of rows.
 const MIN_ROWS: usize = 4;
+/// Half-width of the running median of the trained-ness τ for fading ranges.
+const FADING_HALF_WINDOW: usize = 7;
+/// Smoothed trained-ness below which trained rows next to an untrained tail count as
+/// fading (1 = the median trained row, 0 = noise).
+const FADING_BELOW: f64 = 0.75;
+/// The same threshold away from a tail.
+const FADING_BELOW_STRICT: f64 = 0.5;
 /// Asymptotic Kolmogorov critical value at α = 0.001 (P(K > 1.9495) = 0.001); the
 /// α = 0.05/0.01 values 1.3581/1.6276 are in check-values §8.4.
 const KS_001: f64 = 1.9495;
@@ -181,7 +188,9 @@ const KS_001: f64 = 1.9495;
 ///    90 % of the tail's rows are untrained. Other untrained rows form further ranges.
 /// 8. Fading: runs of ≥ 3 trained rows whose trained-ness
 ///    `τ = (e_r − k/d)/(median trained e − k/d)` (or `c_r / median trained c` without a
-///    subspace) is below 0.5.
+///    subspace), as a running median over ±7 rows, is below 0.5 (0.75 for a stretch
+///    that reaches the untrained tail), in the second half of the rows before the tail
+///    (early rows are seen by every sequence).
 /// 9. Phase boundary among the rows before the tail (see `phase_boundary` below).
 ///
 /// # Edge cases
@@ -390,13 +399,52 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
             _ => med_c.map_or(1.0, |m| if m > 0.0 { neighbour[r] / m } else { 1.0 }),
         }
     };
-    let weak: Vec<bool> = (0..n)
-        .map(|r| valid[r] && !in_range[r] && r >= start && tau(r) < 0.5)
+    // Per-row τ is noisy on narrow tables (few dimensions per row), so it is judged by
+    // its running median over ±FADING_HALF_WINDOW candidate rows.
+    let candidate: Vec<bool> = (0..n)
+        .map(|r| valid[r] && !in_range[r] && r >= start)
         .collect();
-    report.fading = ranges_of(&weak)
-        .into_iter()
-        .filter(|r| r[1] - r[0] >= 3)
+    let taus: Vec<f64> = (0..n)
+        .map(|r| if candidate[r] { tau(r) } else { f64::NAN })
         .collect();
+    let smoothed: Vec<f64> = (0..n)
+        .map(|r| {
+            if !candidate[r] {
+                return f64::NAN;
+            }
+            median(
+                taus[r.saturating_sub(FADING_HALF_WINDOW)..(r + FADING_HALF_WINDOW + 1).min(n)]
+                    .to_vec(),
+            )
+            .unwrap_or(f64::NAN)
+        })
+        .collect();
+    // Fading is the footprint of a length distribution with a thin tail: it lives in the
+    // second half of the trained rows (early rows are used by every sequence, so weak
+    // trained-ness there is structure, e.g. special first positions). Next to an
+    // untrained tail the softer threshold applies; elsewhere the stricter one, so the
+    // ordinary ups and downs of a fully trained table are not called fading.
+    let trained_end = first.unwrap_or(n);
+    let second_half = start + (trained_end - start) / 2;
+    let runs = |below: f64| {
+        let weak: Vec<bool> = smoothed.iter().map(|&m| m < below).collect();
+        ranges_of(&weak)
+            .into_iter()
+            .filter(|r| r[1] - r[0] >= 3 && r[0] >= second_half)
+            .collect::<Vec<_>>()
+    };
+    let mut fading = runs(FADING_BELOW_STRICT);
+    if let Some(tail) = first {
+        let soft = runs(FADING_BELOW);
+        // The soft stretch counts when it reaches the tail (within one window).
+        if soft
+            .last()
+            .is_some_and(|r| r[1] + 2 * FADING_HALF_WINDOW + 2 >= tail)
+        {
+            fading = soft;
+        }
+    }
+    report.fading = fading;
 
     // Phase boundary among the trained rows before the tail.
     let end = first.unwrap_or(n);
