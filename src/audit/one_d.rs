@@ -314,10 +314,24 @@ fn learned(
         }
     );
     let limits = "Evidence from the weights alone: these rows look like initial noise (unrelated to their neighbours, off the trained rows' subspace). Confirm on held-out sequences that reach these positions before re-initialising, truncating or extending from them.";
+    // The fading stretch, in table rows: short untrained runs inside it are the noisy
+    // edge of the fade (a weakly trained row crosses the per-row threshold by chance), so
+    // they are told in the partially-trained finding instead of as separate warnings.
+    let fading_span = (!report.fading.is_empty()).then(|| {
+        [
+            to_table(report.fading[0])[0],
+            to_table(report.fading[report.fading.len() - 1])[1],
+        ]
+    });
+    let mut within_fade: Vec<[usize; 2]> = Vec::new();
     for r in &report.ranges {
         let r = to_table(*r);
         let tail = r[1] == n_all;
         let in_reserved = r[1] <= reserved;
+        if !tail && r[1] - r[0] < 3 && fading_span.is_some_and(|f| f[0] <= r[0] && r[1] <= f[1]) {
+            within_fade.push(r);
+            continue;
+        }
         audit.findings.push(Finding {
             code: if tail { "untrained-tail" } else { "untrained-rows" },
             severity: if in_reserved { Severity::Info } else { Severity::Warning },
@@ -351,10 +365,19 @@ fn learned(
             severity: Severity::Info,
             positions: Some(r),
             message: format!(
-                "{rows} rows between {} and {} move gradually from trained structure towards noise ({}): trained on few sequences that long.",
+                "{rows} rows between {} and {} move gradually from trained structure towards noise ({}): trained on few sequences that long.{}",
                 r[0],
                 r[1],
-                pieces.iter().take(4).map(|p| range_text(*p)).collect::<Vec<_>>().join(", ")
+                pieces.iter().take(4).map(|p| range_text(*p)).collect::<Vec<_>>().join(", "),
+                if within_fade.is_empty() {
+                    String::new()
+                } else {
+                    let n: usize = within_fade.iter().map(|x| x[1] - x[0]).sum();
+                    format!(
+                        " Within it, {n} row(s) look untrained on their own ({}), as expected at the noisy edge of a fade.",
+                        within_fade.iter().take(6).map(|x| range_text(*x)).collect::<Vec<_>>().join(", ")
+                    )
+                }
             ),
             evidence: evidence.clone(),
             limits: "A fading range is the expected footprint of a length distribution with a thin tail; it is not a defect by itself.".into(),
@@ -382,17 +405,20 @@ fn learned(
         Some(f) => {
             let start = to_table([f, f + 1])[0];
             let tail = n_all - start;
+            let in_fade: usize = within_fade.iter().map(|x| x[1] - x[0]).sum();
             let others = report
                 .count
-                .saturating_sub(report.ranges.last().map_or(0, |r| r[1] - r[0]));
-            format!(
-                "trained rows 0..{start}, untrained tail from row {start} ({tail} rows){}",
-                if others > 0 {
-                    format!("; {others} more untrained row(s) before it")
-                } else {
-                    String::new()
-                }
-            )
+                .saturating_sub(report.ranges.last().map_or(0, |r| r[1] - r[0]))
+                .saturating_sub(in_fade);
+            let mut text =
+                format!("trained rows 0..{start}, untrained tail from row {start} ({tail} rows)");
+            if let Some(f) = fading_span {
+                text.push_str(&format!("; partially trained rows {}..{}", f[0], f[1]));
+            }
+            if others > 0 {
+                text.push_str(&format!("; {others} more untrained row(s) before it"));
+            }
+            text
         }
         None if report.count > 0 => format!(
             "{} untrained row(s) outside a tail; the rest trained",
