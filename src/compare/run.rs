@@ -391,23 +391,17 @@ fn finish(mut t: Tracked, n_ckpt: usize, options: &StepOptions) -> TableComparis
                 code: "table-missing",
                 severity: Severity::Warning,
                 positions: None,
-                message: if held.len() == 1 {
-                    format!(
-                        "`{}` is missing from checkpoint{} {}; it exists only in checkpoint {}, so nothing was compared.",
-                        t.entry.name,
-                        if t.entry.missing_from.len() == 1 { "" } else { "s" },
-                        list(&t.entry.missing_from),
-                        list(&held)
-                    )
-                } else {
-                    format!(
-                        "`{}` is missing from checkpoint{} {}; it was compared across checkpoints {} only.",
-                        t.entry.name,
-                        if t.entry.missing_from.len() == 1 { "" } else { "s" },
-                        list(&t.entry.missing_from),
-                        list(&held)
-                    )
-                },
+                message: format!(
+                    "`{}` is missing from checkpoint{} {}; {}",
+                    t.entry.name,
+                    if t.entry.missing_from.len() == 1 { "" } else { "s" },
+                    list(&t.entry.missing_from),
+                    if held.len() == 1 {
+                        format!("it exists only in checkpoint {}, so nothing was compared.", list(&held))
+                    } else {
+                        format!("it was compared across checkpoints {} only.", list(&held))
+                    }
+                ),
                 evidence: "no tensor of that name, and no single unmatched table of the same kind and shape, in those checkpoints".into(),
                 limits: "A table renamed and reshaped at once cannot be matched; compare it explicitly with --table.".into(),
             },
