@@ -227,7 +227,14 @@ pub struct AuditArgs {
     /// help only on large tables (thousands of rows and columns) with idle
     /// cores; the last digits of the numbers may then differ from a one-thread
     /// run. With the `lapack` build it also sets OpenBLAS's thread count.
-    #[arg(long, value_name = "N", default_value_t = 1, verbatim_doc_comment)]
+    /// 0 is refused.
+    #[arg(
+        long,
+        value_name = "N",
+        default_value_t = 1,
+        value_parser = clap::builder::TypedValueParser::map(clap::value_parser!(u64).range(1..), |n| n as usize),
+        verbatim_doc_comment
+    )]
     pub threads: usize,
 }
 
@@ -294,6 +301,39 @@ pub struct CompareArgs {
     pub json: bool,
 }
 
+/// Reports a command-line error. Help and version requests print as clap prints them
+/// (exit 0); `posaudit` alone prints the help on stderr (exit 2); every other argument
+/// error is one line on stderr, `posaudit: <what is wrong> (see --help)`, exit 2.
+pub fn report_parse_error(e: clap::Error) -> std::process::ExitCode {
+    use clap::error::ErrorKind;
+    match e.kind() {
+        ErrorKind::DisplayHelp
+        | ErrorKind::DisplayVersion
+        | ErrorKind::DisplayHelpOnMissingArgumentOrSubcommand => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            std::process::ExitCode::from(code)
+        }
+        _ => {
+            eprintln!("posaudit: {}", parse_error_line(&e));
+            std::process::ExitCode::from(2)
+        }
+    }
+}
+
+/// The first line of clap's message without its `error: ` prefix, with a pointer to the
+/// help of the subcommand.
+fn parse_error_line(e: &clap::Error) -> String {
+    let text = e.render().to_string();
+    let first = text
+        .lines()
+        .find(|l| !l.trim().is_empty())
+        .unwrap_or("invalid arguments")
+        .trim();
+    let first = first.strip_prefix("error: ").unwrap_or(first);
+    format!("{first} (see --help)")
+}
+
 #[cfg(test)]
 mod tests {
     #[test]
@@ -308,6 +348,18 @@ mod tests {
 
     use super::*;
     use clap::CommandFactory;
+
+    #[test]
+    fn zero_threads_is_refused_in_one_line() {
+        let e = Cli::try_parse_from(["posaudit", "audit", "m", "--threads", "0"]).unwrap_err();
+        let line = parse_error_line(&e);
+        assert!(line.contains("--threads") && !line.contains('\n'), "{line}");
+        let ok = Cli::try_parse_from(["posaudit", "audit", "m", "--threads", "3"]).unwrap();
+        let Command::Audit(args) = ok.command else {
+            panic!("audit expected")
+        };
+        assert_eq!(args.threads, 3);
+    }
 
     #[test]
     fn command_line_definition_is_consistent() {

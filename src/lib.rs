@@ -1,18 +1,35 @@
 //! posaudit: finds the position tables of a transformer checkpoint and analyses them.
 //!
-//! The pipeline: [`checkpoint`] (one module per format, an index of tensors read lazily
-//! from a memory map) → [`detect`] (which tensors are position tables, of which kind) →
-//! [`analyze`] (pure numerical functions) → [`report`] (one serde model, rendered as
-//! JSON, Markdown, SVG and terminal text).
+//! Data flows one way, each layer importing only the layers below it:
+//!
+//! ```text
+//! main.rs (CLI: parses, renders, the only writer of stdout and --out)
+//!   └─ commands      scan, audit, compare: plain options in, a document out
+//!        ├─ verdicts  numbers → verdicts and findings (per kind, compare)
+//!        ├─ report    renderers: terminal, Markdown, SVG, JSON text
+//!        └─ model     the documents: plain serde data
+//!             ├─ analyze, compare (numerics), detect
+//!             └─ checkpoint, config, linalg, text, error
+//! ```
+//!
+//! The command line (clap) lives in the binary (`src/cli.rs`); the library has no clap
+//! types.
 #![deny(missing_docs)]
 
 pub mod analyze;
-pub mod audit;
 pub mod checkpoint;
-pub mod cli;
+pub mod commands;
 pub mod compare;
 pub mod config;
 pub mod detect;
+pub mod error;
 pub mod linalg;
+pub mod model;
 pub mod report;
-pub mod scan;
+pub mod text;
+pub mod verdicts;
+
+pub use error::{Error, Result};
+
+#[cfg(test)]
+pub(crate) mod testutil;

@@ -1,73 +1,163 @@
-//! The `posaudit` binary: parse, dispatch, map errors to exit codes.
+//! The `posaudit` binary: parse the command line, run the command, render its document,
+//! write stdout and `--out` (through [`deliver`], the one place that writes), and map
+//! the outcome to an exit code (0 done, 1 a finding at or above `--fail-on`, 2 the input
+//! or the arguments could not be used).
+
+mod cli;
 
 use std::io::Write;
+use std::path::Path;
 use std::process::ExitCode;
 
 use clap::Parser;
-use posaudit::cli::{AuditArgs, Cli, Command, FailOn};
-use posaudit::report::model::Severity;
-use posaudit::report::terminal;
-use posaudit::report::{markdown, output};
+use cli::{Cli, Command, FailOn};
+use posaudit::commands::{audit, compare, scan};
+use posaudit::model::Severity;
+use posaudit::report::{figures, markdown, output, terminal};
+use posaudit::{Error, Result};
 
 fn main() -> ExitCode {
-    let cli = Cli::parse();
+    let cli = match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => return cli::report_parse_error(e),
+    };
     match run(cli) {
         Ok(code) => code,
-        Err(message) => {
+        Err(e) => {
             // One line, naming the file and the problem (design.md: exit code 2).
-            let one_line = message.replace('\n', " ");
-            eprintln!("posaudit: {one_line}");
+            eprintln!("posaudit: {}", e.one_line());
             ExitCode::from(2)
         }
     }
 }
 
 /// Writes to stdout; a closed pipe (`posaudit scan x | head`) is not an error.
-fn emit(text: &str) -> Result<(), String> {
+fn emit(text: &str) -> Result<()> {
     let mut out = std::io::stdout().lock();
     match out.write_all(text.as_bytes()).and_then(|_| out.flush()) {
         Ok(()) => Ok(()),
         Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
-        Err(e) => Err(format!("cannot write to stdout: {e}")),
+        Err(e) => Err(Error::Usage(format!("cannot write to stdout: {e}"))),
     }
 }
 
-fn run(cli: Cli) -> Result<ExitCode, String> {
+/// What a command's document renders to.
+struct Rendered {
+    /// The JSON document.
+    json: String,
+    /// The terminal summary.
+    terminal: String,
+    /// `report.md` and the plots it links, for `--out`.
+    files: Vec<(String, Vec<u8>)>,
+}
+
+/// The one writer: the `--out` folder (plots, then `report.json` and `report.md`, each
+/// atomically), then stdout (the JSON with `--json`, else the terminal summary).
+fn deliver(rendered: Rendered, out: Option<&Path>, json: bool) -> Result<()> {
+    if let Some(dir) = out {
+        let mut files = rendered.files;
+        files.push(("report.json".into(), rendered.json.clone().into_bytes()));
+        output::write_report(dir, &files)?;
+    }
+    if json {
+        emit(&rendered.json)
+    } else {
+        let mut text = rendered.terminal;
+        if let Some(dir) = out {
+            text.push_str(&format!(
+                "\nreport written to {}\n",
+                dir.join("report.md").display()
+            ));
+        }
+        emit(&text)
+    }
+}
+
+fn fail_level(fail_on: Option<FailOn>) -> Option<Severity> {
+    fail_on.map(|f| match f {
+        FailOn::Warning => Severity::Warning,
+        FailOn::Error => Severity::Error,
+    })
+}
+
+fn run(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Scan(args) => {
-            let report = posaudit::scan::scan(&args.path, &args.tables)?;
-            if args.json {
-                emit(&posaudit::report::output::json_text(&report)?)?;
-            } else {
-                emit(&terminal::scan(&report))?;
+            let report = scan::run(&scan::ScanOptions {
+                path: args.path,
+                tables: args.tables,
+            })?;
+            let rendered = Rendered {
+                json: output::json_text(&report)?,
+                terminal: terminal::scan(&report),
+                files: Vec::new(),
+            };
+            deliver(rendered, None, args.json)?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Audit(args) => {
+            // Fail before the expensive work: the output folder must be writable.
+            if let Some(dir) = &args.out {
+                output::prepare_dir(dir)?;
             }
-            Ok(ExitCode::SUCCESS)
+            let options = audit::AuditOptions {
+                path: args.path,
+                tables: args.tables,
+                threads: args.threads,
+            };
+            let report = with_progress(|progress| audit::run(&options, progress))?;
+            let (md, figures) = markdown::audit::render(&report);
+            let mut files: Vec<(String, Vec<u8>)> = figures
+                .into_iter()
+                .map(|f: figures::Figure| (f.file, f.svg.into_bytes()))
+                .collect();
+            files.push(("report.md".into(), md.into_bytes()));
+            let rendered = Rendered {
+                json: output::json_text(&report)?,
+                terminal: terminal::audit(&report),
+                files,
+            };
+            deliver(rendered, args.out.as_deref(), args.json)?;
+            Ok(match fail_level(args.fail_on) {
+                Some(level) if report.summary.reaches(level) => ExitCode::from(1),
+                _ => ExitCode::SUCCESS,
+            })
         }
-        Command::Audit(args) => audit(args),
         Command::Compare(args) => {
-            emit(&posaudit::compare::run::command(&args)?)?;
+            if let Some(dir) = &args.out {
+                output::prepare_dir(dir)?;
+            }
+            let report = compare::run(&compare::CompareOptions {
+                paths: args.paths,
+                tables: args.tables,
+            })?;
+            let mut files: Vec<(String, Vec<u8>)> = figures::compare::render_plots(&report)
+                .into_iter()
+                .map(|(name, svg)| (name, svg.into_bytes()))
+                .collect();
+            files.push((
+                "report.md".into(),
+                markdown::compare::render(&report).into_bytes(),
+            ));
+            let rendered = Rendered {
+                json: output::json_text(&report)?,
+                terminal: terminal::compare(&report),
+                files,
+            };
+            deliver(rendered, args.out.as_deref(), args.json)?;
             Ok(ExitCode::SUCCESS)
         }
     }
 }
 
-fn to_json<T: serde::Serialize>(value: &T) -> Result<String, String> {
-    posaudit::report::output::json_text(value)
-}
-
-fn audit(args: AuditArgs) -> Result<ExitCode, String> {
-    posaudit::linalg::set_threads(args.threads.max(1));
-    // Fail before the expensive work: the output folder must be writable.
-    if let Some(dir) = &args.out {
-        output::prepare_dir(dir)?;
-    }
+/// Runs `work` with a progress bar on stderr that shows only after a second of work,
+/// and only on a terminal (indicatif hides itself when stderr is not one).
+fn with_progress<T>(work: impl FnOnce(&mut dyn FnMut(&str, usize, usize)) -> T) -> T {
     let bar = indicatif::ProgressBar::new(0);
     bar.set_draw_target(indicatif::ProgressDrawTarget::stderr());
     if let Ok(style) = indicatif::ProgressStyle::with_template("{spinner} {pos}/{len} {wide_msg}") {
         bar.set_style(style);
     }
-    // Only show progress after a second of work, and only on a terminal (indicatif hides
-    // itself when stderr is not one).
     let started = std::time::Instant::now();
     let mut progress = |name: &str, i: usize, total: usize| {
         if started.elapsed().as_secs_f64() > 1.0 {
@@ -76,38 +166,7 @@ fn audit(args: AuditArgs) -> Result<ExitCode, String> {
             bar.set_message(name.to_string());
         }
     };
-    let report = posaudit::audit::audit(&args.path, &args.tables, &mut progress);
+    let result = work(&mut progress);
     bar.finish_and_clear();
-    let report = report?;
-    if let Some(dir) = &args.out {
-        let (md, figures) = markdown::audit(&report);
-        let mut files: Vec<(String, Vec<u8>)> = figures
-            .into_iter()
-            .map(|f| (f.file, f.svg.into_bytes()))
-            .collect();
-        files.push(("report.json".into(), to_json(&report)?.into_bytes()));
-        files.push(("report.md".into(), md.into_bytes()));
-        output::write_report(dir, &files)?;
-    }
-    if args.json {
-        emit(&to_json(&report)?)?;
-    } else {
-        let mut text = posaudit::report::terminal::audit(&report);
-        if let Some(dir) = &args.out {
-            text.push_str(&format!(
-                "\nreport written to {}\n",
-                dir.join("report.md").display()
-            ));
-        }
-        emit(&text)?;
-    }
-    let level = match args.fail_on {
-        Some(FailOn::Warning) => Some(Severity::Warning),
-        Some(FailOn::Error) => Some(Severity::Error),
-        None => None,
-    };
-    Ok(match level {
-        Some(l) if report.summary.reaches(l) => ExitCode::from(1),
-        _ => ExitCode::SUCCESS,
-    })
+    result
 }

@@ -340,3 +340,134 @@ fn a_real_trained_table_gives_no_false_alarm() {
         .unwrap();
     assert_eq!(ids["position_ids"]["contiguous"], true);
 }
+
+/// A llama-style folder: rotary settings only in config.json, no frequency buffer stored
+/// (the weights are a copy of the invented Vaswani fixture). HF linear scaling divides
+/// every inverse frequency by `factor` (check-values §6.3), so the config implies a
+/// context extension by 4x: one info `rotary-scaled` finding, which must be the same
+/// finding in JSON, Markdown, the terminal summary and the counts `--fail-on` reads.
+#[test]
+fn a_config_derived_rotary_finding_is_in_every_output() {
+    let dir = tempfile::tempdir().unwrap();
+    let ckpt = dir.path().join("llama-style");
+    fs::create_dir(&ckpt).unwrap();
+    fs::copy(
+        fixture("audit/vaswani-1024x128.safetensors"),
+        ckpt.join("model.safetensors"),
+    )
+    .unwrap();
+    fs::write(
+        ckpt.join("config.json"),
+        r#"{"model_type": "llama", "hidden_size": 128, "num_attention_heads": 2,
+            "rope_theta": 500000.0, "rope_scaling": {"rope_type": "linear", "factor": 4.0}}"#,
+    )
+    .unwrap();
+    let path = ckpt.to_str().unwrap();
+    let doc = audit_json(path);
+    let rotary = &doc["config_rotary"];
+    assert_eq!(rotary["scaling"], "linear", "{rotary}");
+    assert!((rotary["factor"].as_f64().unwrap() - 4.0).abs() < 1e-9);
+    let config_codes = codes(rotary);
+    assert_eq!(config_codes, vec!["rotary-scaled"]);
+    let infos = doc["tables"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .chain([rotary])
+        .flat_map(|t| t["findings"].as_array().unwrap())
+        .filter(|f| f["severity"] == "info")
+        .count();
+    assert!(infos >= 1);
+    assert_eq!(doc["summary"]["info"].as_u64().unwrap() as usize, infos);
+    // Terminal: the config settings and the counts agree with the JSON.
+    let run = posaudit(&["audit", path]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    assert!(
+        run.stdout.contains(&format!("{infos} info")),
+        "{}",
+        run.stdout
+    );
+    assert!(
+        run.stdout.contains("rotary settings from the config") && run.stdout.contains("linear"),
+        "{}",
+        run.stdout
+    );
+    // Markdown renders the same finding and the same count.
+    let out = dir.path().join("out");
+    let run = posaudit(&["audit", path, "--out", out.to_str().unwrap()]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let md = fs::read_to_string(out.join("report.md")).unwrap();
+    assert!(md.contains("`rotary-scaled`"), "{md}");
+    assert!(md.contains(&format!("{infos} info.**")), "{md}");
+}
+
+#[test]
+fn out_naming_a_file_and_a_run_folder_are_refused_in_one_sentence() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("taken");
+    fs::write(&file, b"x").unwrap();
+    let model = fixture("audit/vaswani-1024x128.safetensors");
+    let run = posaudit(&[
+        "audit",
+        model.to_str().unwrap(),
+        "--out",
+        file.to_str().unwrap(),
+    ]);
+    assert_input_error(&run, "taken", "--out names a file");
+    assert!(!run.stderr.contains("os error"), "{}", run.stderr);
+    // A run folder: checkpoints in sub-folders, none of its own.
+    let run_dir = dir.path().join("run");
+    for step in ["step-1000", "step-2000"] {
+        fs::create_dir_all(run_dir.join(step)).unwrap();
+        fs::copy(&model, run_dir.join(step).join("model.safetensors")).unwrap();
+    }
+    let run = posaudit(&["audit", run_dir.to_str().unwrap()]);
+    assert_input_error(&run, "run", "a run folder holding 2 checkpoints");
+    assert!(run.stderr.contains("posaudit compare"), "{}", run.stderr);
+}
+
+#[test]
+fn a_reused_out_folder_keeps_only_the_linked_plots() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let first = posaudit(&[
+        "audit",
+        fixture("audit/tail-f32").to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert_eq!(first.code, 0, "{}", first.stderr);
+    let second = posaudit(&[
+        "audit",
+        fixture("audit/vaswani-1024x128.safetensors")
+            .to_str()
+            .unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert_eq!(second.code, 0, "{}", second.stderr);
+    let md = fs::read_to_string(out.join("report.md")).unwrap();
+    for entry in fs::read_dir(&out).unwrap() {
+        let name = entry.unwrap().file_name().to_string_lossy().into_owned();
+        if name.ends_with(".svg") {
+            assert!(
+                md.contains(&format!("]({name})")),
+                "stale plot {name} left behind"
+            );
+        }
+    }
+}
+
+#[test]
+fn argument_errors_are_one_line_with_exit_2() {
+    for args in [
+        &["audit", "m.safetensors", "--threads", "0"][..],
+        &["audit", "m.safetensors", "--fail-on", "sometimes"][..],
+        &["frobnicate"][..],
+    ] {
+        let run = posaudit(args);
+        assert_eq!(run.code, 2, "{args:?}: {}", run.stderr);
+        assert_eq!(run.stderr.lines().count(), 1, "{args:?}: {}", run.stderr);
+        assert!(run.stderr.starts_with("posaudit: "), "{}", run.stderr);
+    }
+}

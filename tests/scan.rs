@@ -477,7 +477,7 @@ fn mutated_files_give_a_result_or_an_input_error_never_a_panic() {
                 for t in &ckpt.tensors {
                     let _ = ckpt.read_f64(t);
                 }
-                posaudit::scan::scan_opened(&ckpt, &[]).is_ok()
+                posaudit::commands::scan::scan_opened(&ckpt, &[]).is_ok()
             });
             let ok =
                 result.unwrap_or_else(|_| panic!("panic on mutation {k} of {}", src.display()));

@@ -5,26 +5,10 @@
 //! the d=768 sinusoid, check-values §1.3) while rows left at random initial values are
 //! unrelated to their neighbours (cosine about N(0, 1/d), check-values §8.2).
 
-use ndarray::{Array2, ArrayView1, ArrayView2};
+use ndarray::{Array2, ArrayView2};
 use serde::Serialize;
 
-/// Cosine similarity of two vectors; None when either has zero norm or a non-finite value.
-///
-/// ```text
-/// cos(a, b) = a·b / (‖a‖ ‖b‖)
-/// ```
-pub fn cosine(a: ArrayView1<f64>, b: ArrayView1<f64>) -> Option<f64> {
-    if a.len() != b.len() || a.iter().chain(b.iter()).any(|v| !v.is_finite()) {
-        return None;
-    }
-    let (mut ab, mut aa, mut bb) = (0.0, 0.0, 0.0);
-    for (x, y) in a.iter().zip(b.iter()) {
-        ab += x * y;
-        aa += x * x;
-        bb += y * y;
-    }
-    (aa > 0.0 && bb > 0.0).then(|| (ab / (aa.sqrt() * bb.sqrt())).clamp(-1.0, 1.0))
-}
+pub use super::stats::cosine;
 
 /// Cosine of each row with the next one: `n − 1` values for `n` rows.
 ///

@@ -5,6 +5,7 @@
 //! rows stand out. This module measures the profile and flags outliers with a robust
 //! score, so one extreme row cannot hide the others by inflating a standard deviation.
 
+use super::stats::median as median_of;
 use ndarray::{ArrayView1, ArrayView2, Axis};
 use serde::Serialize;
 
@@ -132,21 +133,6 @@ pub fn modified_z_scores(x: ArrayView1<f64>) -> Vec<Option<f64>> {
             }
         })
         .collect()
-}
-
-/// Median of finite values; None for an empty slice.
-pub(crate) fn median_of(values: &[f64]) -> Option<f64> {
-    if values.is_empty() {
-        return None;
-    }
-    let mut v = values.to_vec();
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    Some(if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        0.5 * (v[n / 2 - 1] + v[n / 2])
-    })
 }
 
 fn finite_mean(values: &[f64]) -> Option<f64> {

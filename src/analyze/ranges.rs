@@ -36,6 +36,26 @@ pub fn ranges_from_mask(mask: &[bool]) -> Vec<[usize; 2]> {
     out
 }
 
+/// The row indices `rows` (any order, repeats allowed) as merged half-open ranges.
+///
+/// ```
+/// use posaudit::analyze::ranges::ranges_from_rows;
+/// assert_eq!(ranges_from_rows([7, 2, 3, 3, 9]), vec![[2, 4], [7, 8], [9, 10]]);
+/// ```
+pub fn ranges_from_rows(rows: impl IntoIterator<Item = usize>) -> Vec<[usize; 2]> {
+    let mut sorted: Vec<usize> = rows.into_iter().collect();
+    sorted.sort_unstable();
+    sorted.dedup();
+    let mut out: Vec<[usize; 2]> = Vec::new();
+    for r in sorted {
+        match out.last_mut() {
+            Some(last) if last[1] == r => last[1] = r + 1,
+            _ => out.push([r, r + 1]),
+        }
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -44,6 +64,17 @@ mod tests {
     fn runs_touching_both_ends_are_closed_at_the_mask_length() {
         assert_eq!(ranges_from_mask(&[true, false, true]), vec![[0, 1], [2, 3]]);
         assert_eq!(ranges_from_mask(&[true, true]), vec![[0, 2]]);
+    }
+
+    #[test]
+    fn rows_merge_into_the_same_ranges_as_their_mask() {
+        let rows = [5, 1, 2, 9, 8, 2];
+        let mut mask = vec![false; 10];
+        for r in rows {
+            mask[r] = true;
+        }
+        assert_eq!(ranges_from_rows(rows), ranges_from_mask(&mask));
+        assert!(ranges_from_rows([]).is_empty());
     }
 
     #[test]

@@ -18,13 +18,12 @@
 //! JSON contract (`from`, `to`, `change`, `unchanged`, `subspace_similarity`).
 
 pub mod change;
-pub mod run;
 pub mod similarity;
 pub mod timeline;
 pub mod unchanged;
 
 #[cfg(test)]
-mod testutil;
+use crate::testutil;
 
 use ndarray::{ArrayView2, s};
 use serde::Serialize;

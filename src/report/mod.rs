@@ -1,13 +1,18 @@
-//! The report model and its renderings.
+//! The renderers: each turns a document of [`crate::model`] into text or SVG, and
+//! computes nothing the document does not hold.
 //!
-//! [`model`] holds the serde structs that are the single source of truth of every output:
-//! the JSON documents are these structs serialised; the terminal summary, the Markdown
-//! report and the SVG plots are renderings of the same structs.
+//! - [`terminal`]: the summaries printed on stdout (scan, audit, compare).
+//! - [`markdown`]: `report.md` of an audit or a comparison.
+//! - [`figures`]: which plots a report has and how each is drawn, with [`plots`]
+//!   (the hand-written SVG renderer) doing the drawing.
+//! - [`output`]: the JSON text, and atomic writing of the `--out` folder (called by
+//!   `main.rs` only).
+//!
+//! The wording pieces they share (ranges, plurals, escaping, short names) are in
+//! [`crate::text`], which the verdict messages use too.
 
-pub mod compare_report;
 pub mod figures;
 pub mod markdown;
-pub mod model;
 pub mod output;
 pub mod plots;
 pub mod terminal;

@@ -7,19 +7,34 @@ use std::fs;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
+use crate::error::{Error, Result};
+
+fn output_error(path: &Path, problem: String) -> Error {
+    Error::Output {
+        path: path.to_path_buf(),
+        problem,
+    }
+}
+
 /// Creates `dir` if needed and checks that files can be written in it.
-pub fn prepare_dir(dir: &Path) -> Result<(), String> {
+pub fn prepare_dir(dir: &Path) -> Result<()> {
+    if dir.exists() && !dir.is_dir() {
+        return Err(output_error(
+            dir,
+            "--out names a file; give a folder (it is created if missing)".into(),
+        ));
+    }
     fs::create_dir_all(dir)
-        .map_err(|e| format!("{}: cannot create output folder: {e}", dir.display()))?;
+        .map_err(|e| output_error(dir, format!("cannot create output folder: {e}")))?;
     let probe = dir.join(format!(".posaudit-write-test-{}", std::process::id()));
     fs::write(&probe, b"")
-        .map_err(|e| format!("{}: cannot write in output folder: {e}", dir.display()))?;
+        .map_err(|e| output_error(dir, format!("cannot write in output folder: {e}")))?;
     let _ = fs::remove_file(&probe);
     Ok(())
 }
 
 /// Writes `bytes` to `dir/name` atomically (temporary file, fsync, rename).
-pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, String> {
+pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf> {
     let target = dir.join(name);
     let tmp = dir.join(format!(".{name}.tmp-{}", std::process::id()));
     let result = (|| -> std::io::Result<()> {
@@ -30,20 +45,45 @@ pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf,
     })();
     if let Err(e) = result {
         let _ = fs::remove_file(&tmp);
-        return Err(format!("{}: cannot write: {e}", target.display()));
+        return Err(output_error(&target, format!("cannot write: {e}")));
     }
     Ok(target)
 }
 
+/// True for the names of the plots a report writes (`t01-norms.svg`, `t0-x-change.svg`,
+/// `config-rope.svg`): only these are removed as stale from a reused folder.
+fn is_report_plot(name: &str) -> bool {
+    let Some(stem) = name.strip_suffix(".svg") else {
+        return false;
+    };
+    let numbered = stem
+        .strip_prefix('t')
+        .is_some_and(|rest| rest.starts_with(|c: char| c.is_ascii_digit()) && rest.contains('-'));
+    numbered || stem.starts_with("config-")
+}
+
 /// All files of one report, written together: the plots first, then the documents that
-/// link them, so a reader never sees a report whose plots are missing.
-pub fn write_report(dir: &Path, files: &[(String, Vec<u8>)]) -> Result<Vec<PathBuf>, String> {
+/// link them, so a reader never sees a report whose plots are missing. Plots of an
+/// earlier report in the same folder that this one does not write are removed
+/// afterwards, so the folder holds exactly what `report.md` links.
+pub fn write_report(dir: &Path, files: &[(String, Vec<u8>)]) -> Result<Vec<PathBuf>> {
     let mut order: Vec<&(String, Vec<u8>)> = files.iter().collect();
     order.sort_by_key(|(name, _)| !name.ends_with(".svg"));
-    order
+    let written = order
         .into_iter()
         .map(|(name, bytes)| write_atomically(dir, name, bytes))
-        .collect()
+        .collect::<Result<Vec<PathBuf>>>()?;
+    if let Ok(entries) = fs::read_dir(dir) {
+        for entry in entries.flatten() {
+            let name = entry.file_name().to_string_lossy().into_owned();
+            if is_report_plot(&name) && !files.iter().any(|(n, _)| *n == name) {
+                fs::remove_file(entry.path()).map_err(|e| {
+                    output_error(&entry.path(), format!("cannot remove a stale plot: {e}"))
+                })?;
+            }
+        }
+    }
+    Ok(written)
 }
 
 #[cfg(test)]
@@ -77,8 +117,42 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let file = dir.path().join("plain-file");
         fs::write(&file, b"x").unwrap();
-        let err = prepare_dir(&file.join("sub")).unwrap_err();
+        let err = prepare_dir(&file.join("sub")).unwrap_err().to_string();
         assert!(err.contains("plain-file") && !err.contains('\n'), "{err}");
+        let err = prepare_dir(&file).unwrap_err().to_string();
+        assert!(
+            err.contains("names a file") && !err.contains("os error"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn a_reused_folder_keeps_no_stale_plots() {
+        let dir = tempfile::tempdir().unwrap();
+        let out = dir.path();
+        for name in [
+            "t01-norms.svg",
+            "t02-spectrum.svg",
+            "config-rope.svg",
+            "mine.svg",
+        ] {
+            fs::write(out.join(name), b"<svg/>").unwrap();
+        }
+        write_report(
+            out,
+            &[
+                ("t01-norms.svg".into(), b"<svg/>".to_vec()),
+                ("report.md".into(), b"# r".to_vec()),
+            ],
+        )
+        .unwrap();
+        let mut names: Vec<String> = fs::read_dir(out)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .collect();
+        names.sort();
+        // The user's own file stays; plots the new report does not write are gone.
+        assert_eq!(names, vec!["mine.svg", "report.md", "t01-norms.svg"]);
     }
 }
 
@@ -86,9 +160,8 @@ mod tests {
 /// strings, booleans or nulls on one line (per-row signals are long; one number per line
 /// made reports ten times longer to scroll). Ends with a newline. Same document as
 /// `serde_json::to_string_pretty`, only the whitespace differs.
-pub fn json_text<T: serde::Serialize>(value: &T) -> Result<String, String> {
-    let value =
-        serde_json::to_value(value).map_err(|e| format!("cannot serialise the report: {e}"))?;
+pub fn json_text<T: serde::Serialize>(value: &T) -> Result<String> {
+    let value = serde_json::to_value(value)?;
     let mut out = String::new();
     write_json(&value, 0, &mut out);
     out.push('\n');

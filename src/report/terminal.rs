@@ -1,83 +1,29 @@
-//! Plain-text renderings for the terminal: a one-line summary and aligned tables.
+//! Plain-text renderings for the terminal: a one-line summary and aligned tables, for
+//! each of the three documents. Long tensor names are shortened here (and only here:
+//! the JSON and the reports keep them whole).
 
 use std::fmt::Write;
 
-use super::model::ScanReport;
-
-/// Human-readable byte count (binary units).
-pub fn human_bytes(b: u64) -> String {
-    const UNITS: [&str; 5] = ["B", "KiB", "MiB", "GiB", "TiB"];
-    let mut v = b as f64;
-    let mut u = 0;
-    while v >= 1024.0 && u + 1 < UNITS.len() {
-        v /= 1024.0;
-        u += 1;
-    }
-    if u == 0 {
-        format!("{b} B")
-    } else {
-        format!("{v:.1} {}", UNITS[u])
-    }
-}
-
-/// Formats a shape as `512x768`.
-pub fn shape_str(shape: &[usize]) -> String {
-    if shape.is_empty() {
-        return "scalar".to_string();
-    }
-    shape
-        .iter()
-        .map(usize::to_string)
-        .collect::<Vec<_>>()
-        .join("x")
-}
-
-/// Renders rows as left-aligned columns separated by two spaces; the last column is not
-/// padded (it holds free text).
-pub fn aligned(header: &[&str], rows: &[Vec<String>]) -> String {
-    let n = header.len();
-    let mut width = vec![0usize; n];
-    for (i, h) in header.iter().enumerate() {
-        width[i] = h.chars().count();
-    }
-    for r in rows {
-        for (i, c) in r.iter().enumerate().take(n) {
-            width[i] = width[i].max(c.chars().count());
-        }
-    }
-    let mut out = String::new();
-    let line = |cells: Vec<&str>, out: &mut String| {
-        let mut s = String::new();
-        for (i, c) in cells.iter().enumerate() {
-            if i + 1 == n {
-                s.push_str(c);
-            } else {
-                let _ = write!(s, "{c:<w$}  ", w = width[i]);
-            }
-        }
-        out.push_str(s.trim_end());
-        out.push('\n');
-    };
-    line(header.to_vec(), &mut out);
-    for r in rows {
-        line(r.iter().map(String::as_str).collect(), &mut out);
-    }
-    out
-}
+use crate::model::Severity;
+use crate::model::audit::AuditReport;
+use crate::model::compare::CompareReport;
+use crate::model::scan::ScanReport;
+use crate::report::markdown::compare::step_label;
+use crate::text::{
+    NAME_WIDTH, aligned, count, fixed, human_bytes, rows as rows_text, sci, shape_str, short_name,
+};
 
 /// The scan summary: one line about the checkpoint, the config hints, then the tables.
 pub fn scan(report: &ScanReport) -> String {
     let c = &report.checkpoint;
     let mut out = format!(
-        "{}: {} checkpoint, {} file{}, {} tensors, {}; {} position table{}\n",
+        "{}: {} checkpoint, {}, {}, {}; {}\n",
         c.path,
         c.format,
-        c.files,
-        if c.files == 1 { "" } else { "s" },
-        c.tensors,
+        count(c.files, "file"),
+        count(c.tensors, "tensor"),
         human_bytes(c.bytes),
-        report.tables.len(),
-        if report.tables.len() == 1 { "" } else { "s" }
+        count(report.tables.len(), "position table")
     );
     if let Some(cfg) = &report.config {
         let _ = writeln!(out, "config ({}): {}", cfg.source, cfg.summary());
@@ -92,7 +38,7 @@ pub fn scan(report: &ScanReport) -> String {
             .iter()
             .map(|t| {
                 vec![
-                    t.name.clone(),
+                    short_name(&t.name, NAME_WIDTH),
                     t.kind.as_str().to_string(),
                     shape_str(&t.shape),
                     t.dtype.clone(),
@@ -118,9 +64,8 @@ pub fn scan(report: &ScanReport) -> String {
     if !report.skipped.is_empty() {
         let _ = writeln!(
             out,
-            "\n{} tensor{} skipped (type not analysable), e.g. `{}` ({}): {}",
-            report.skipped.len(),
-            if report.skipped.len() == 1 { "" } else { "s" },
+            "\n{} skipped (type not analysable), e.g. `{}` ({}): {}",
+            count(report.skipped.len(), "tensor"),
             report.skipped[0].name,
             report.skipped[0].dtype,
             report.skipped[0].reason
@@ -131,15 +76,14 @@ pub fn scan(report: &ScanReport) -> String {
 
 /// The audit summary for the terminal: one line about the checkpoint, one row per table,
 /// then every warning and error finding.
-pub fn audit(report: &super::model::AuditReport) -> String {
+pub fn audit(report: &AuditReport) -> String {
     let c = &report.checkpoint;
     let s = &report.summary;
     let mut out = format!(
-        "{}: {} checkpoint, {} table{}; findings: {} error, {} warning, {} info\n",
+        "{}: {} checkpoint, {}; findings: {} error, {} warning, {} info\n",
         c.path,
         c.format,
-        report.tables.len(),
-        if report.tables.len() == 1 { "" } else { "s" },
+        count(report.tables.len(), "table"),
         s.error,
         s.warning,
         s.info
@@ -154,7 +98,7 @@ pub fn audit(report: &super::model::AuditReport) -> String {
             .iter()
             .map(|t| {
                 vec![
-                    t.name.clone(),
+                    short_name(&t.name, NAME_WIDTH),
                     t.kind.as_str().to_string(),
                     shape_str(&t.shape),
                     t.worst()
@@ -169,26 +113,41 @@ pub fn audit(report: &super::model::AuditReport) -> String {
             &rows,
         ));
     }
+    if let Some(r) = &report.config_rotary {
+        let worst = r
+            .findings
+            .iter()
+            .map(|f| f.severity)
+            .max()
+            .map(|w| w.as_str())
+            .unwrap_or("ok");
+        let _ = writeln!(
+            out,
+            "\nrotary settings from the config (no frequency tensor stored): {worst}  {}",
+            r.verdict
+        );
+    }
+    let config_findings = report
+        .config_rotary
+        .iter()
+        .flat_map(|r| r.findings.iter().map(|f| ("config", f)));
     let serious: Vec<String> = report
         .tables
         .iter()
-        .flat_map(|t| {
-            t.findings
-                .iter()
-                .filter(|f| f.severity >= super::model::Severity::Warning)
-                .map(move |f| {
-                    let at = f
-                        .positions
-                        .map(|[a, b]| format!(" rows {a}..{b}"))
-                        .unwrap_or_default();
-                    format!(
-                        "{} {}{at} [{}]: {}",
-                        f.severity.as_str(),
-                        f.code,
-                        t.name,
-                        f.message
-                    )
-                })
+        .flat_map(|t| t.findings.iter().map(move |f| (t.name.as_str(), f)))
+        .chain(config_findings)
+        .filter(|(_, f)| f.severity >= Severity::Warning)
+        .map(|(name, f)| {
+            let at = f
+                .positions
+                .map(|r| format!(" {}", rows_text(r)))
+                .unwrap_or_default();
+            format!(
+                "{} {}{at} [{name}]: {}",
+                f.severity.as_str(),
+                f.code,
+                f.message
+            )
         })
         .collect();
     if !serious.is_empty() {
@@ -200,18 +159,84 @@ pub fn audit(report: &super::model::AuditReport) -> String {
     out
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn columns_align_and_the_last_is_free_text() {
-        let s = aligned(
-            &["a", "bb", "why"],
-            &[vec!["xxx".into(), "y".into(), "long text".into()]],
+/// The terminal summary: the checkpoints, then one line per table and step.
+pub fn compare(report: &CompareReport) -> String {
+    let mut out = String::new();
+    for c in &report.checkpoints {
+        let _ = writeln!(
+            out,
+            "[{}] {} ({}, {} tensors)",
+            c.index, c.summary.path, c.summary.format, c.summary.tensors
         );
-        assert_eq!(s, "a    bb  why\nxxx  y   long text\n");
-        assert_eq!(human_bytes(1536), "1.5 KiB");
-        assert_eq!(shape_str(&[512, 768]), "512x768");
     }
+    for w in &report.warnings {
+        let _ = writeln!(out, "warning: {w}");
+    }
+    out.push('\n');
+    if report.tables.is_empty() {
+        out.push_str("no position table found in any checkpoint\n");
+        return out;
+    }
+    let mut rows = Vec::new();
+    for t in &report.tables {
+        for s in t.steps.iter().chain(t.first_to_last.iter()) {
+            rows.push(vec![
+                short_name(&t.name, NAME_WIDTH),
+                step_label(s),
+                s.rows_compared.to_string(),
+                sci(s.mean_change),
+                if s.per_row {
+                    s.unchanged_rows.to_string()
+                } else {
+                    "-".into()
+                },
+                fixed(s.subspace_similarity, 4),
+                s.note.clone().unwrap_or_default(),
+            ]);
+        }
+        if t.steps.is_empty() {
+            rows.push(vec![
+                short_name(&t.name, NAME_WIDTH),
+                "-".into(),
+                "-".into(),
+                "-".into(),
+                "-".into(),
+                "-".into(),
+                t.notes.first().cloned().unwrap_or_default(),
+            ]);
+        }
+    }
+    out.push_str(&aligned(
+        &[
+            "table",
+            "step",
+            "rows",
+            "mean change",
+            "unchanged rows",
+            "subspace sim",
+            "note",
+        ],
+        &rows,
+    ));
+    let findings: usize = report.tables.iter().map(|t| t.findings.len()).sum();
+    if findings > 0 {
+        let _ = writeln!(
+            out,
+            "\n{} (see --json or --out for details)",
+            count(findings, "finding")
+        );
+        for t in &report.tables {
+            for f in t.findings.iter().take(5) {
+                let _ = writeln!(
+                    out,
+                    "  {} {} {}: {}",
+                    f.finding.severity.as_str(),
+                    f.finding.code,
+                    t.name,
+                    f.finding.message
+                );
+            }
+        }
+    }
+    out
 }

@@ -4,23 +4,19 @@
 
 use std::borrow::Cow;
 
-use ndarray::{Array2, s};
+use ndarray::Array2;
 use serde::Serialize;
 
-use crate::analyze::hygiene::{self, Hygiene};
-use crate::analyze::neighbours::{self, CosineMatrix, LocalityProfile};
-use crate::analyze::norms::{self, NormProfile};
-use crate::analyze::periodicity::{self, Autocorrelation, RepeatedBlock};
-use crate::analyze::sinusoid;
-use crate::analyze::spectrum;
+use crate::analyze::ranges::ranges_from_rows;
+use crate::analyze::stats::median;
 use crate::analyze::untrained::{self, UntrainedHints};
-use crate::analyze::waves::{self, Wave};
+use crate::analyze::{hygiene, neighbours, norms, periodicity, sinusoid, spectrum, waves};
 use crate::checkpoint::Dtype;
 use crate::config::ConfigHints;
 use crate::detect::Kind;
-use crate::report::model::{Finding, Severity};
-
-use super::TableAudit;
+use crate::model::audit::{Profile, TableAudit};
+use crate::model::{Finding, FindingCode, Severity};
+use crate::text::rows as range_text;
 
 /// Leading principal components kept for plots and waves.
 pub const COMPONENTS: usize = 8;
@@ -31,31 +27,6 @@ pub const LOCALITY_DISTANCE: usize = 128;
 /// Largest lag of the autocorrelation (longer periods show in the waves of the leading
 /// components).
 pub const AUTOCORRELATION_LAGS: usize = 512;
-
-/// The shape of a 1-D table along position: norms, neighbourhood, waves, periodicity,
-/// hygiene.
-#[derive(Debug, Clone, Serialize)]
-pub struct Profile {
-    /// Rows analysed (all rows, or the finite ones when some hold NaN/inf).
-    pub analysed_rows: usize,
-    /// Row norms, drift and robust outliers.
-    pub norms: NormProfile,
-    /// Cosine of each analysed row with the next (null where a row is zero).
-    pub neighbour_cosine: Vec<Option<f64>>,
-    /// Mean cosine against distance.
-    pub locality: LocalityProfile,
-    /// Downsampled position-by-position cosines (for the heatmap; not in the JSON).
-    #[serde(skip)]
-    pub cosine_matrix: CosineMatrix,
-    /// Dominant wave of each leading component, in component order.
-    pub waves: Vec<Option<Wave>>,
-    /// Autocorrelation along positions.
-    pub autocorrelation: Option<Autocorrelation>,
-    /// A block repeated along positions (a table extended by copying).
-    pub repeated_block: Option<RepeatedBlock>,
-    /// Zero, duplicate and non-finite rows.
-    pub hygiene: Hygiene,
-}
 
 /// Rows reserved before position 0 by a model family's indexing (never indexed, or
 /// used only for padding), from the config's model type: OPT and BART offset by 2
@@ -133,14 +104,6 @@ fn profile(table: &Array2<f64>) -> (Profile, Cow<'_, Array2<f64>>, Vec<usize>) {
     (profile, t, kept)
 }
 
-fn range_text(r: [usize; 2]) -> String {
-    if r[1] == r[0] + 1 {
-        format!("row {}", r[0])
-    } else {
-        format!("rows {}..{}", r[0], r[1])
-    }
-}
-
 /// Audits one 1-D table (rows × dim) of the given storage type.
 pub fn audit_table(
     audit: &mut TableAudit,
@@ -156,26 +119,18 @@ pub fn audit_table(
     let h = &prof.hygiene;
     if h.non_finite_count > 0 {
         for r in &h.non_finite_rows {
-            audit.findings.push(Finding {
-                code: "non-finite",
-                severity: Severity::Error,
-                positions: Some(*r),
-                message: format!("{} holds NaN or infinite values; the analysis continues on the {} finite rows.", range_text(*r), kept.len()),
-                evidence: format!("{} non-finite values in all", h.non_finite_count),
-                limits: "Any forward pass that reads these rows produces NaN; they must be repaired or the run restarted from an earlier checkpoint.".into(),
-            });
+            audit.findings.push(Finding::error(FindingCode::NonFinite, format!("{} {} NaN or infinite values; the analysis continues on the {} finite rows.", range_text(*r), if r[1] == r[0] + 1 { "holds" } else { "hold" }, kept.len()))
+.rows(*r)
+.evidence(format!("{} non-finite values in all", h.non_finite_count))
+.limits("Any forward pass that reads these rows produces NaN; they must be repaired or the run restarted from an earlier checkpoint."));
         }
     }
     if !h.duplicate_groups.is_empty() {
         let first = &h.duplicate_groups[0];
-        audit.findings.push(Finding {
-            code: "duplicate-rows",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!("{} group(s) of bit-identical rows, e.g. rows {:?}.", h.duplicate_groups.len(), first),
-            evidence: format!("groups: {:?}", h.duplicate_groups.iter().take(5).collect::<Vec<_>>()),
-            limits: "Identical rows make those positions indistinguishable to the model; a copy-based extension or a bug in a conversion script are the usual causes.".into(),
-        });
+        audit.findings.push(Finding::warning(FindingCode::DuplicateRows, format!("{} group(s) of bit-identical rows, e.g. rows {:?}.", h.duplicate_groups.len(), first))
+.ranges(ranges_from_rows(h.duplicate_groups.iter().flatten().copied()))
+.evidence(format!("groups: {:?}", h.duplicate_groups.iter().take(5).collect::<Vec<_>>()))
+.limits("Identical rows make those positions indistinguishable to the model; a copy-based extension or a bug in a conversion script are the usual causes."));
     }
     if finite.nrows() < 2 {
         audit.verdict = "too few finite rows to analyse".into();
@@ -195,26 +150,17 @@ pub fn audit_table(
     }
     // A period of one row is a run of duplicates, reported as duplicate-rows.
     if let Some(b) = prof.repeated_block.as_ref().filter(|b| b.period >= 2) {
-        audit.findings.push(Finding {
-            code: "repeated-block",
-            severity: Severity::Info,
-            positions: Some([b.start, b.end]),
-            message: format!("Rows {}..{} repeat with a period of {} rows: the table was extended by copying a shorter one.", b.start, b.end, b.period),
-            evidence: format!("{} rows covered, max abs difference {:.2e}", b.rows_covered, b.max_abs_difference),
-            limits: "Copies that were trained afterwards drift apart; an exact repeat means the copied rows were not trained since.".into(),
-        });
+        audit.findings.push(Finding::info(FindingCode::RepeatedBlock, format!("Rows {}..{} repeat with a period of {} rows: the table was extended by copying a shorter one.", b.start, b.end, b.period))
+.rows([b.start, b.end])
+.evidence(format!("{} rows covered, max abs difference {:.2e}", b.rows_covered, b.max_abs_difference))
+.limits("Copies that were trained afterwards drift apart; an exact repeat means the copied rows were not trained since."));
     }
     if let Some((expected, why)) = declared_rows(&audit.name, config)
         && expected != n
     {
-        audit.findings.push(Finding {
-            code: "length-mismatch",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!("The table has {n} rows but the config implies {expected}."),
-            evidence: why,
-            limits: "Some families add reserved rows this tool does not know; check how the model computes position indices.".into(),
-        });
+        audit.findings.push(Finding::warning(FindingCode::LengthMismatch, format!("The table has {n} rows but the config implies {expected}."))
+.evidence(why)
+.limits("Some families add reserved rows this tool does not know; check how the model computes position indices."));
     }
     match audit.kind {
         Kind::FixedSinusoidal => fixed(audit, &finite, dtype),
@@ -228,19 +174,15 @@ pub fn audit_table(
             .map(|p| p.value);
         let at_pad =
             pad.is_some_and(|p| zero.len() == 1 && zero[0] == [p as usize, p as usize + 1]);
-        audit.findings.push(Finding {
-            code: "zero-rows",
-            severity: Severity::Info,
-            positions: zero.first().copied(),
-            message: format!(
+        audit.findings.push(Finding::info(FindingCode::ZeroRows, format!(
                 "{} all-zero row(s): {}{}.",
                 prof.hygiene.zero_row_count,
                 zero.iter().take(4).map(|r| range_text(*r)).collect::<Vec<_>>().join(", "),
                 if at_pad { " (the padding row of pad_token_id)" } else { "" }
-            ),
-            evidence: "every value exactly 0.0".into(),
-            limits: "A zero padding row is the usual convention; a zero row that real positions index carries no position information.".into(),
-        });
+            ))
+.ranges(zero.iter().copied())
+.evidence("every value exactly 0.0")
+.limits("A zero padding row is the usual convention; a zero row that real positions index carries no position information."));
     }
     let outliers: Vec<usize> = prof
         .norms
@@ -258,14 +200,10 @@ pub fn audit_table(
     // A handful of outliers is informative; a fifth of the rows "out" means the norms
     // are simply spread (common in trained tables), so say nothing.
     if !outliers.is_empty() && outliers.len() <= (n / 50).max(1) {
-        audit.findings.push(Finding {
-            code: "norm-outlier",
-            severity: Severity::Info,
-            positions: Some([outliers[0], outliers[0] + 1]),
-            message: format!("{} row(s) have a norm far from the others (robust z > 3.5), e.g. rows {:?}.", outliers.len(), &outliers[..outliers.len().min(6)]),
-            evidence: format!("median row norm {:.4}", prof.norms.median.unwrap_or(f64::NAN)),
-            limits: "Row 0 is often an outlier in trained tables (it is seen by every sequence); by itself this is not a defect.".into(),
-        });
+        audit.findings.push(Finding::info(FindingCode::NormOutlier, format!("{} row(s) have a norm far from the others (robust z > 3.5), e.g. rows {:?}.", outliers.len(), &outliers[..outliers.len().min(6)]))
+.ranges(ranges_from_rows(outliers.iter().copied()))
+.evidence(format!("median row norm {:.4}", prof.norms.median.unwrap_or(f64::NAN)))
+.limits("Row 0 is often an outlier in trained tables (it is seen by every sequence); by itself this is not a defect."));
     }
     audit.profile = Some(prof);
 }
@@ -332,11 +270,7 @@ fn learned(
             within_fade.push(r);
             continue;
         }
-        audit.findings.push(Finding {
-            code: if tail { "untrained-tail" } else { "untrained-rows" },
-            severity: if in_reserved { Severity::Info } else { Severity::Warning },
-            positions: Some(r),
-            message: if tail {
+        audit.findings.push(Finding::new(if in_reserved { Severity::Info } else { Severity::Warning }, if tail { FindingCode::UntrainedTail } else { FindingCode::UntrainedRows }, if tail {
                 format!("Positions {}..{} ({} rows) look untrained: training probably never used sequences longer than {}.", r[0], r[1], r[1] - r[0], r[0].saturating_sub(reserved))
             } else if in_reserved {
                 format!(
@@ -350,21 +284,17 @@ fn learned(
                     range_text(r),
                     if r[1] == r[0] + 1 { "looks" } else { "look" }
                 )
-            },
-            evidence: evidence.clone(),
-            limits: limits.into(),
-        });
+            })
+.rows(r)
+.evidence(evidence.clone())
+.limits(limits));
     }
     if !report.fading.is_empty() {
         // One finding for the whole fading stretch, however fragmented the rows are.
         let pieces: Vec<[usize; 2]> = report.fading.iter().map(|r| to_table(*r)).collect();
         let r = [pieces[0][0], pieces[pieces.len() - 1][1]];
         let rows: usize = pieces.iter().map(|p| p[1] - p[0]).sum();
-        audit.findings.push(Finding {
-            code: "partially-trained",
-            severity: Severity::Info,
-            positions: Some(r),
-            message: format!(
+        audit.findings.push(Finding::info(FindingCode::PartiallyTrained, format!(
                 "{rows} rows between {} and {} move gradually from trained structure towards noise ({}): trained on few sequences that long.{}",
                 r[0],
                 r[1],
@@ -378,21 +308,17 @@ fn learned(
                         within_fade.iter().take(6).map(|x| range_text(*x)).collect::<Vec<_>>().join(", ")
                     )
                 }
-            ),
-            evidence: evidence.clone(),
-            limits: "A fading range is the expected footprint of a length distribution with a thin tail; it is not a defect by itself.".into(),
-        });
+            ))
+.rows(r)
+.evidence(evidence.clone())
+.limits("A fading range is the expected footprint of a length distribution with a thin tail; it is not a defect by itself."));
     }
     if let Some(p) = &report.phase_boundary {
         let row = kept.get(p.row).copied().unwrap_or(p.row);
-        audit.findings.push(Finding {
-            code: "phase-boundary",
-            severity: Severity::Info,
-            positions: Some([row, n_all]),
-            message: format!("The table's statistics change at row {row}: a model trained mostly at a shorter length, or a table extended later."),
-            evidence: format!("{} {:.4} before vs {:.4} after (effect {:.2}, window {})", p.statistic, p.before, p.after, p.effect, p.window),
-            limits: "The rows after the boundary are still trained; they may be less reliable than the rows before it.".into(),
-        });
+        audit.findings.push(Finding::info(FindingCode::PhaseBoundary, format!("The table's statistics change at row {row}: a model trained mostly at a shorter length, or a table extended later."))
+.rows([row, n_all])
+.evidence(format!("{} {:.4} before vs {:.4} after (effect {:.2}, window {})", p.statistic, p.before, p.after, p.effect, p.window))
+.limits("The rows after the boundary are still trained; they may be less reliable than the rows before it."));
     }
     let smooth = prof
         .neighbour_cosine
@@ -436,14 +362,10 @@ fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
     let half_ulp = dtype.half_ulp_below_one().unwrap_or(2f64.powi(-25));
     let Some(fit) = sinusoid::fit_sinusoid(table.view(), half_ulp) else {
         audit.verdict = "not a sine/cosine table".into();
-        audit.findings.push(Finding {
-            code: "sinusoid-mismatch",
-            severity: Severity::Error,
-            positions: Some([0, table.nrows()]),
-            message: "The table is named or shaped as a fixed sinusoid but its columns are not sine/cosine pairs of any base, layout or offset.".into(),
-            evidence: "no pairing of columns has sin² + cos² constant across rows (median radius spread above 10%)".into(),
-            limits: "If the table is meant to be learned, this is expected; if it is meant to be the formula, it was overwritten or trained.".into(),
-        });
+        audit.findings.push(Finding::error(FindingCode::SinusoidMismatch, "The table is named or shaped as a fixed sinusoid but its columns are not sine/cosine pairs of any base, layout or offset.")
+.rows([0, table.nrows()])
+.evidence("no pairing of columns has sin² + cos² constant across rows (median radius spread above 10%)")
+.limits("If the table is meant to be learned, this is expected; if it is meant to be the formula, it was overwritten or trained."));
         return;
     };
     let mismatch_tolerance = (16.0 * half_ulp * fit.scale.max(1e-12)).max(1e-2 * fit.scale);
@@ -468,33 +390,25 @@ fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
             .map(|b| format!("{:.3} at rows {}..{}", b.max_abs_error, b.start, b.end))
             .collect::<Vec<_>>()
             .join(", ");
-        audit.findings.push(Finding {
-            code: "low-precision",
-            severity: Severity::Warning,
-            positions: Some([0, table.nrows()]),
-            message: format!(
+        audit.findings.push(Finding::warning(FindingCode::LowPrecision, format!(
                 "The angles were computed in {} before the sine/cosine: errors grow with position far beyond the storage rounding.",
                 p.best_match.as_deref().unwrap_or("a low-precision type")
-            ),
-            evidence: format!(
+            ))
+.rows([0, table.nrows()])
+.evidence(format!(
                 "max error {:.3} = {:.0}x the {} half-ULP; by range: {by_range}; the simulated {} computation reproduces the table",
                 fit.max_abs_error,
                 p.error_to_half_ulp,
                 audit.dtype,
                 p.best_match.as_deref().unwrap_or("?")
-            ),
-            limits: "A model trained with this table has learned around its errors; recomputing it exactly changes what the model sees. Fix it for new training runs.".into(),
-        });
+            ))
+.limits("A model trained with this table has learned around its errors; recomputing it exactly changes what the model sees. Fix it for new training runs."));
     } else if fit.max_abs_error > mismatch_tolerance {
         audit.verdict = format!("not the formula it resembles: {describe}");
-        audit.findings.push(Finding {
-            code: "sinusoid-mismatch",
-            severity: Severity::Error,
-            positions: Some([fit.worst_row, fit.worst_row + 1]),
-            message: format!("The table resembles a sinusoid but differs from the best-fitting formula by up to {:.3} (worst at row {}).", fit.max_abs_error, fit.worst_row),
-            evidence: format!("best fit: {describe}; tolerance {mismatch_tolerance:.2e}"),
-            limits: "A fixed table that was trained, edited or resized by interpolation drifts from the formula; compare with the code that builds it.".into(),
-        });
+        audit.findings.push(Finding::error(FindingCode::SinusoidMismatch, format!("The table resembles a sinusoid but differs from the best-fitting formula by up to {:.3} (worst at row {}).", fit.max_abs_error, fit.worst_row))
+.rows([fit.worst_row, fit.worst_row + 1])
+.evidence(format!("best fit: {describe}; tolerance {mismatch_tolerance:.2e}"))
+.limits("A fixed table that was trained, edited or resized by interpolation drifts from the formula; compare with the code that builds it."));
     } else {
         audit.verdict = format!("exact sinusoid: {describe}");
     }
@@ -518,18 +432,4 @@ fn fmt_num(x: f64) -> String {
 
 fn fmt_opt(x: Option<f64>) -> String {
     x.map(|v| format!("{v:.3}")).unwrap_or_else(|| "n/a".into())
-}
-
-fn median(v: &[f64]) -> Option<f64> {
-    if v.is_empty() {
-        return None;
-    }
-    let mut s = v.to_vec();
-    s.sort_by(f64::total_cmp);
-    Some(s[s.len() / 2])
-}
-
-#[allow(dead_code)]
-fn first_rows(t: &Array2<f64>, k: usize) -> Array2<f64> {
-    t.slice(s![..k.min(t.nrows()), ..]).to_owned()
 }

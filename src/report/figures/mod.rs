@@ -1,12 +1,16 @@
-//! Chooses and builds the plots of an audit report from the report model: which plot
-//! each table gets, its title, axes and shaded ranges. Drawing itself is in [`super::plots`].
+//! Chooses and builds the plots of an audit report from the document: which plot each
+//! table gets, its title, axes and shaded ranges. Drawing itself is in [`super::plots`];
+//! the plots of a comparison are in [`compare`].
+
+pub mod compare;
 
 use super::plots::{
     self, ColorScale, Colormap, Heatmap, HeatmapGrid, HeatmapPanel, LineChart, Matrix, Panel,
     RefLine, Scale, Series, SmallMultiples, XRange,
 };
-use crate::audit::TableAudit;
 use crate::detect::Kind;
+use crate::model::FindingCode;
+use crate::model::audit::TableAudit;
 
 /// One plot: its file name (unique within the report), a caption, and the SVG.
 #[derive(Debug, Clone)]
@@ -50,27 +54,22 @@ pub fn table_figures(t: &TableAudit, index: usize) -> Vec<Figure> {
 
 fn shaded_ranges(t: &TableAudit) -> Vec<XRange> {
     let mut shaded = Vec::new();
-    if let Some(u) = &t.untrained {
-        for f in t.findings.iter().filter(|f| {
-            matches!(
-                f.code,
-                "untrained-tail" | "untrained-rows" | "partially-trained"
-            )
-        }) {
-            if let Some([s, e]) = f.positions {
-                let label = if f.code == "partially-trained" {
-                    "fading"
-                } else {
-                    "untrained"
-                };
-                shaded.push(XRange {
-                    start: s as f64,
-                    end: e as f64,
-                    label: format!("{label} {s}–{e}"),
-                });
-            }
+    if t.untrained.is_none() {
+        return shaded;
+    }
+    for f in &t.findings {
+        let label = match f.code {
+            FindingCode::UntrainedTail | FindingCode::UntrainedRows => "untrained",
+            FindingCode::PartiallyTrained => "fading",
+            _ => continue,
+        };
+        for &r in &f.ranges {
+            shaded.push(XRange {
+                start: r[0] as f64,
+                end: r[1] as f64,
+                label: format!("{label} {}", crate::text::range(r)),
+            });
         }
-        let _ = u;
     }
     shaded
 }

@@ -4,13 +4,13 @@
 
 use std::fmt::Write;
 
-use super::figures::{self, Figure};
-use super::model::{AuditReport, Finding, Severity};
-use super::terminal::{human_bytes, shape_str};
-use crate::audit::TableAudit;
+use super::{finding, finding_badges};
+use crate::model::audit::{AuditReport, TableAudit};
+use crate::report::figures::{self, Figure};
+use crate::text::{escape, human_bytes, shape_str};
 
 /// Renders the report and its plots. Returns the Markdown text and the figures it links.
-pub fn audit(report: &AuditReport) -> (String, Vec<Figure>) {
+pub fn render(report: &AuditReport) -> (String, Vec<Figure>) {
     let mut md = String::new();
     let mut all_figures = Vec::new();
     let c = &report.checkpoint;
@@ -74,17 +74,16 @@ pub fn audit(report: &AuditReport) -> (String, Vec<Figure>) {
         md.push('\n');
     }
     if let Some(r) = &report.config_rotary {
-        let (verdict, findings) = crate::audit::kinds::rotary_findings(r);
         let _ = writeln!(md, "## Rotary settings from the config\n");
         let _ = writeln!(
             md,
             "No frequency tensor is stored; these come from `rope_theta` / `rope_scaling`: {}.\n",
-            escape(&verdict)
+            escape(&r.verdict)
         );
-        for f in &findings {
+        for f in &r.findings {
             finding(&mut md, f);
         }
-        for f in figures::rotary(r, "config", "config rope") {
+        for f in figures::rotary(&r.analysis, "config", "config rope") {
             let _ = writeln!(md, "![{}]({})\n", f.caption, f.file);
             all_figures.push(f);
         }
@@ -135,43 +134,6 @@ pub fn audit(report: &AuditReport) -> (String, Vec<Figure>) {
         "---\nFindings are statistical evidence from the stored weights alone. They do not replace evaluation on real data: confirm any finding on held-out inputs before acting on it (re-initialising, truncating or extending a table)."
     );
     (md, all_figures)
-}
-
-fn finding_badges(f: &[Finding]) -> String {
-    if f.is_empty() {
-        return "none".into();
-    }
-    let mut codes: Vec<String> = Vec::new();
-    for x in f {
-        let s = format!("{} `{}`", x.severity.as_str(), x.code);
-        if !codes.contains(&s) {
-            codes.push(s);
-        }
-    }
-    codes.join(", ")
-}
-
-fn escape(s: &str) -> String {
-    s.replace('|', "\\|").replace('\n', " ")
-}
-
-fn finding(md: &mut String, f: &Finding) {
-    let marker = match f.severity {
-        Severity::Error => "**error**",
-        Severity::Warning => "**warning**",
-        Severity::Info => "info",
-    };
-    let at = f
-        .positions
-        .map(|[s, e]| format!(" — rows {s}..{e}"))
-        .unwrap_or_default();
-    let _ = writeln!(md, "- {marker} `{}`{at}: {}", f.code, escape(&f.message));
-    if !f.evidence.is_empty() {
-        let _ = writeln!(md, "  - Evidence: {}", escape(&f.evidence));
-    }
-    if !f.limits.is_empty() {
-        let _ = writeln!(md, "  - Limits: {}", escape(&f.limits));
-    }
 }
 
 fn section(md: &mut String, t: &TableAudit, i: usize, figs: &[Figure]) {

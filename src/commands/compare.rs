@@ -21,56 +21,29 @@ use std::rc::Rc;
 
 use ndarray::{Array2, s};
 
-use super::{
+use crate::analyze::stats::median;
+use crate::checkpoint::{Checkpoint, Dtype, TensorInfo};
+use crate::compare::{
     CompareError, DEFAULT_MEDIAN_FRACTION, StepOptions, Timeline, common_leading_rows,
     compare_step, estimate_noise, rounding_tolerance, similarity,
 };
-use crate::checkpoint::{Checkpoint, Dtype, TensorInfo};
-use crate::cli::CompareArgs;
 use crate::detect::{self, Detected, Kind};
-use crate::report::compare_report::{
+use crate::error::{Error, Result};
+use crate::model::CheckpointSummary;
+use crate::model::compare::{
     COMPARE_SCHEMA, CheckpointEntry, CompareFinding, CompareReport, MatchedBy, StepEntry,
-    TableComparison, TableMatch, render_markdown, render_plots, render_terminal,
+    TableComparison, TableMatch,
 };
-use crate::report::model::{CheckpointSummary, Finding, Severity};
-use crate::report::output::{prepare_dir, write_report};
+use crate::verdicts::compare as verdicts;
 
-/// Most `unchanged-rows` findings per step; further ranges are summed up in one more.
-const MAX_RANGE_FINDINGS: usize = 4;
-
-/// Runs the `compare` command: returns what goes to stdout (the JSON document with
-/// `--json`, otherwise the terminal summary) after writing the `--out` folder if asked.
-/// Errors are one line naming the file and the problem (exit code 2).
-pub fn command(args: &CompareArgs) -> Result<String, String> {
-    if let Some(dir) = &args.out {
-        prepare_dir(dir)?;
-    }
-    let report = compare(&args.paths, &args.tables)?;
-    if let Some(dir) = &args.out {
-        let mut files: Vec<(String, Vec<u8>)> = render_plots(&report)
-            .into_iter()
-            .map(|(name, svg)| (name, svg.into_bytes()))
-            .collect();
-        files.push(("report.json".into(), to_json(&report)?.into_bytes()));
-        files.push(("report.md".into(), render_markdown(&report).into_bytes()));
-        write_report(dir, &files)?;
-    }
-    if args.json {
-        to_json(&report)
-    } else {
-        let mut text = render_terminal(&report);
-        if let Some(dir) = &args.out {
-            text.push_str(&format!(
-                "\nreport written to {}\n",
-                dir.join("report.md").display()
-            ));
-        }
-        Ok(text)
-    }
-}
-
-fn to_json(report: &CompareReport) -> Result<String, String> {
-    crate::report::output::json_text(report)
+/// What `compare` needs.
+#[derive(Debug, Clone, Default)]
+pub struct CompareOptions {
+    /// The checkpoints, in order (at least two).
+    pub paths: Vec<PathBuf>,
+    /// Restrict the comparison to these tensor names (treated as tables even if the
+    /// detector would not); each must exist in at least one checkpoint.
+    pub tables: Vec<String>,
 }
 
 /// One version of a table held in memory.
@@ -79,6 +52,12 @@ struct Held {
     index: usize,
     table: Rc<Array2<f64>>,
     dtype: Dtype,
+}
+
+impl Held {
+    fn shape(&self) -> [usize; 2] {
+        [self.table.nrows(), self.table.ncols()]
+    }
 }
 
 /// A table followed across checkpoints.
@@ -102,15 +81,14 @@ fn mantissa_bits(d: &Dtype) -> u32 {
     }
 }
 
-/// Compares the checkpoints at `paths` (at least two) in order. `forced` restricts the
-/// comparison to these tensor names (treated as tables even if the detector would not);
-/// each must exist in at least one checkpoint.
-pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, String> {
+/// Compares the checkpoints of `options` in order.
+pub fn run(options: &CompareOptions) -> Result<CompareReport> {
+    let (paths, forced) = (&options.paths[..], &options.tables[..]);
     if paths.len() < 2 {
-        return Err(format!(
+        return Err(Error::Usage(format!(
             "compare needs at least two checkpoints, got {}",
             paths.len()
-        ));
+        )));
     }
     // Open every checkpoint once first (headers only), so a bad path fails before any
     // table is read; each is closed again right away.
@@ -134,18 +112,18 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
         } else {
             format!("; closest in the first: `{}`", close.join("`, `"))
         };
-        return Err(format!(
+        return Err(Error::Usage(format!(
             "{}: no tensor named `{f}` in any of the {} checkpoints{hint}",
             paths[0].display(),
             paths.len()
-        ));
+        )));
     }
     let n_ckpt = paths.len();
     let quiet_window = if n_ckpt >= 5 { 2 } else { 1 };
     let mut warnings = Vec::new();
     let mut tracked: Vec<Tracked> = Vec::new();
     let mut ignored_ids: Vec<String> = Vec::new();
-    let options = StepOptions::default();
+    let step_options = StepOptions::default();
     for (index, path) in paths.iter().enumerate() {
         let ckpt = open(path)?;
         warnings.extend(ckpt.warnings.iter().map(|w| format!("[{index}] {w}")));
@@ -154,7 +132,7 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
             .filter(|f| ckpt.tensor(f).is_some())
             .cloned()
             .collect();
-        let detection = detect::detect(&ckpt, &present).map_err(|e| e.to_string())?;
+        let detection = detect::detect(&ckpt, &present)?;
         let mut candidates: Vec<(&Detected, &TensorInfo)> = Vec::new();
         for d in &detection.tables {
             if d.kind == Kind::PositionIds {
@@ -188,7 +166,7 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
                 info,
                 index,
                 how,
-                &options,
+                &step_options,
                 &mut warnings,
             );
         }
@@ -223,7 +201,7 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
                 info,
                 index,
                 MatchedBy::Name,
-                &options,
+                &step_options,
                 &mut warnings,
             );
             tracked.push(t);
@@ -232,7 +210,7 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
     }
     let tables = tracked
         .into_iter()
-        .map(|t| finish(t, n_ckpt, &options))
+        .map(|t| finish(t, n_ckpt, &step_options))
         .collect();
     Ok(CompareReport {
         schema: COMPARE_SCHEMA,
@@ -242,8 +220,8 @@ pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, St
     })
 }
 
-fn open(path: &Path) -> Result<Checkpoint, String> {
-    Checkpoint::open(path).map_err(|e| e.to_string())
+fn open(path: &Path) -> Result<Checkpoint> {
+    Ok(Checkpoint::open(path)?)
 }
 
 /// For each tracked table, the candidate it matches in this checkpoint: first by name,
@@ -380,33 +358,11 @@ fn finish(mut t: Tracked, n_ckpt: usize, options: &StepOptions) -> TableComparis
         let held: Vec<usize> = (0..n_ckpt)
             .filter(|i| !t.entry.missing_from.contains(i))
             .collect();
-        let list = |v: &[usize]| {
-            v.iter()
-                .map(usize::to_string)
-                .collect::<Vec<_>>()
-                .join(", ")
-        };
-        t.entry.findings.push(CompareFinding {
-            finding: Finding {
-                code: "table-missing",
-                severity: Severity::Warning,
-                positions: None,
-                message: format!(
-                    "`{}` is missing from checkpoint{} {}; {}",
-                    t.entry.name,
-                    if t.entry.missing_from.len() == 1 { "" } else { "s" },
-                    list(&t.entry.missing_from),
-                    if held.len() == 1 {
-                        format!("it exists only in checkpoint {}, so nothing was compared.", list(&held))
-                    } else {
-                        format!("it was compared across checkpoints {} only.", list(&held))
-                    }
-                ),
-                evidence: "no tensor of that name, and no single unmatched table of the same kind and shape, in those checkpoints".into(),
-                limits: "A table renamed and reshaped at once cannot be matched; compare it explicitly with --table.".into(),
-            },
-            step: None,
-        });
+        t.entry.findings.push(verdicts::table_missing(
+            &t.entry.name,
+            &t.entry.missing_from,
+            &held,
+        ));
         if held.len() < 2 {
             t.entry
                 .notes
@@ -461,19 +417,6 @@ fn empty_step(a: &Held, b: &Held, rows: usize) -> StepEntry {
     }
 }
 
-fn median(mut v: Vec<f64>) -> Option<f64> {
-    if v.is_empty() {
-        return None;
-    }
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    Some(if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        0.5 * (v[n / 2 - 1] + v[n / 2])
-    })
-}
-
 /// Compares two versions of a table; returns the step and its findings.
 fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<CompareFinding>) {
     let (ta, tb) = (a.table.view(), b.table.view());
@@ -487,7 +430,12 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
             ta.ncols(),
             tb.ncols()
         ));
-        findings.push(shape_finding(a, b, &step, &where_));
+        findings.push(verdicts::shape_changed(
+            &a.shape(),
+            &b.shape(),
+            &step,
+            &where_,
+        ));
         let (x, y) = (ta.slice(s![..rows, ..]), tb.slice(s![..rows, ..]));
         match similarity(x, y, &options.similarity) {
             Ok(sim) => {
@@ -504,7 +452,12 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
             ta.nrows(),
             tb.nrows()
         ));
-        findings.push(shape_finding(a, b, &step, &where_));
+        findings.push(verdicts::shape_changed(
+            &a.shape(),
+            &b.shape(),
+            &step,
+            &where_,
+        ));
     }
     let (tol, tol_dtype) = tolerance(&a.dtype, &b.dtype);
     let step_options = StepOptions {
@@ -520,8 +473,13 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
             step.per_row = true;
             step.mean_change = (!sc.change.is_empty())
                 .then(|| sc.change.iter().sum::<f64>() / sc.change.len() as f64);
-            step.median_relative_change =
-                median(sc.relative_change.iter().flatten().copied().collect());
+            step.median_relative_change = median(
+                &sc.relative_change
+                    .iter()
+                    .flatten()
+                    .copied()
+                    .collect::<Vec<f64>>(),
+            );
             step.unchanged_rows = sc.unchanged.iter().map(|[s, e]| e - s).sum();
             step.noise = estimate_noise(&sc.change, &sc.unchanged, DEFAULT_MEDIAN_FRACTION).ok();
             step.change = sc.change;
@@ -535,25 +493,19 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
             step.tolerance_dtype = Some(tol_dtype.clone());
             step.similarity = sc.similarity;
             step.similarity_unavailable = sc.similarity_unavailable;
-            findings.extend(unchanged_findings(&step, &tol_dtype, &where_));
+            findings.extend(verdicts::unchanged(&step, &tol_dtype, &where_));
         }
         Err(e) => {
             let reason = e.to_string();
             if let CompareError::NonFinite { which, count } = e {
                 let idx = if which == "first" { a.index } else { b.index };
-                findings.push(CompareFinding {
-                    finding: Finding {
-                        code: "non-finite",
-                        severity: Severity::Error,
-                        positions: None,
-                        message: format!(
-                            "The table in checkpoint {idx} holds {count} NaN or infinite values; {where_} was not compared."
-                        ),
-                        evidence: reason.clone(),
-                        limits: "Run `posaudit audit` on that checkpoint to see which rows.".into(),
-                    },
-                    step: Some([a.index, b.index]),
-                });
+                findings.push(verdicts::non_finite(
+                    idx,
+                    count,
+                    &where_,
+                    &reason,
+                    [a.index, b.index],
+                ));
             }
             step.note = Some(match step.note.take() {
                 Some(n) => format!("{n}; not compared: {reason}"),
@@ -562,86 +514,4 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
         }
     }
     (step, findings)
-}
-
-fn shape_finding(a: &Held, b: &Held, step: &StepEntry, where_: &str) -> CompareFinding {
-    CompareFinding {
-        finding: Finding {
-            code: "shape-changed",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!(
-                "The table changed shape ({}x{} → {}x{}) between {where_}.",
-                a.table.nrows(),
-                a.table.ncols(),
-                b.table.nrows(),
-                b.table.ncols()
-            ),
-            evidence: step.note.clone().unwrap_or_default(),
-            limits: "Rows are assumed to keep their positions (a table extended or cut at the end); a table re-interpolated to a new length cannot be compared row by row.".into(),
-        },
-        step: Some([a.index, b.index]),
-    }
-}
-
-const UNCHANGED_LIMITS: &str = "Identical up to a scale means never updated, only decayed: no gradient reached these rows between the two checkpoints, and decoupled weight decay alone shrank them by the common factor (exactly 1 means untouched or frozen). It says nothing about whether they were trained before the earlier checkpoint.";
-
-fn unchanged_findings(step: &StepEntry, dtype: &str, where_: &str) -> Vec<CompareFinding> {
-    let mut out = Vec::new();
-    let tol = step.unchanged_tolerance.unwrap_or(0.0);
-    for r in step.unchanged_detail.iter().take(MAX_RANGE_FINDINGS) {
-        let rows = r.end - r.start;
-        let message = if r.bit_identical {
-            format!(
-                "Rows {}–{} ({rows} rows) are bit-identical between {where_}.",
-                r.start, r.end
-            )
-        } else {
-            format!(
-                "Rows {}–{} ({rows} rows) are identical between {where_} up to one common scale factor ×{:.6}.",
-                r.start, r.end, r.scale
-            )
-        };
-        let largest = step.change[r.start..r.end.min(step.change.len())]
-            .iter()
-            .copied()
-            .fold(0.0, f64::max);
-        out.push(CompareFinding {
-            finding: Finding {
-                code: "unchanged-rows",
-                severity: Severity::Info,
-                positions: Some([r.start, r.end]),
-                message,
-                evidence: format!(
-                    "scale factor {:.9}, largest relative row residual {:.2e} ≤ tolerance {tol:.2e} ({dtype} storage); largest L2 change among these rows {largest:.3e}",
-                    r.scale, r.residual
-                ),
-                limits: UNCHANGED_LIMITS.into(),
-            },
-            step: Some([step.from, step.to]),
-        });
-    }
-    let rest = &step.unchanged_detail[step.unchanged_detail.len().min(MAX_RANGE_FINDINGS)..];
-    if !rest.is_empty() {
-        let rows: usize = rest.iter().map(|r| r.end - r.start).sum();
-        out.push(CompareFinding {
-            finding: Finding {
-                code: "unchanged-rows",
-                severity: Severity::Info,
-                positions: None,
-                message: format!(
-                    "{} more unchanged ranges ({rows} rows) between {where_}; all are listed in the step's `unchanged_detail`.",
-                    rest.len()
-                ),
-                evidence: format!(
-                    "scale factors from {:.6} to {:.6}",
-                    rest.iter().map(|r| r.scale).fold(f64::INFINITY, f64::min),
-                    rest.iter().map(|r| r.scale).fold(0.0, f64::max)
-                ),
-                limits: UNCHANGED_LIMITS.into(),
-            },
-            step: Some([step.from, step.to]),
-        });
-    }
-    out
 }

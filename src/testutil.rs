@@ -1,4 +1,4 @@
-//! Invented test data for the compare tests: a small seeded generator (SplitMix64,
+//! Invented test data for the unit tests of the whole crate: a small seeded generator (SplitMix64,
 //! Steele, Lea & Flood 2014, constants as published), Gaussian draws by the Box–Muller
 //! transform (Box & Muller 1958) and random orthogonal matrices from the QR
 //! factorisation of a Gaussian matrix (Mezzadri 2007, "How to generate random matrices
@@ -7,7 +7,8 @@
 
 use ndarray::Array2;
 
-pub struct Rng(u64);
+/// SplitMix64 state; `Rng(seed)` or [`Rng::new`].
+pub struct Rng(pub u64);
 
 impl Rng {
     pub fn new(seed: u64) -> Self {

@@ -7,11 +7,10 @@ use ndarray::{Array2, ArrayView1};
 use crate::analyze::grid::{self, GridHints};
 use crate::analyze::position_ids;
 use crate::analyze::relative::{self, RelativeHints};
-use crate::analyze::rotary::{self, RotaryAnalysis, RotaryHints};
+use crate::analyze::rotary::{self, LayerAgreement, RotaryAnalysis, RotaryHints};
 use crate::config::ConfigHints;
-use crate::report::model::{Finding, Severity};
-
-use super::TableAudit;
+use crate::model::audit::{ConfigRotary, TableAudit};
+use crate::model::{Finding, FindingCode};
 
 fn hint_usize(h: &Option<crate::config::Hint<u64>>) -> Option<usize> {
     h.as_ref().and_then(|h| usize::try_from(h.value).ok())
@@ -30,17 +29,17 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
     };
     let Some(layout) = grid::infer_grid(table.nrows(), &audit.shape, &hints) else {
         audit.verdict = format!("no grid layout fits {} rows", table.nrows());
-        audit.findings.push(Finding {
-            code: "grid-layout-unknown",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!(
-                "No square grid (with 0-8 extra rows) or config image/patch size fits {} rows.",
-                table.nrows()
-            ),
-            evidence: format!("shape {:?}", audit.shape),
-            limits: "Non-square grids need image_size and patch_size in config.json.".into(),
-        });
+        audit.findings.push(
+            Finding::warning(
+                FindingCode::GridLayoutUnknown,
+                format!(
+                    "No square grid (with 0-8 extra rows) or config image/patch size fits {} rows.",
+                    table.nrows()
+                ),
+            )
+            .evidence(format!("shape {:?}", audit.shape))
+            .limits("Non-square grids need image_size and patch_size in config.json."),
+        );
         return;
     };
     let a = grid::analyze_grid(table.view(), &layout);
@@ -57,20 +56,16 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
                 "{verdict}; fixed 2-D sin-cos grid (first half of the columns encodes the {} index, max error {:.2e})",
                 fixed.first_half_axis, fixed.max_abs_error
             );
-            audit.findings.push(Finding {
-                code: "fixed-grid",
-                severity: Severity::Info,
-                positions: Some([extra, table.nrows()]),
-                message: format!(
+            audit.findings.push(Finding::info(FindingCode::FixedGrid, format!(
                     "The grid is the fixed 2-D sin-cos formula, not learned; the first half of the columns encodes the {} index.",
                     fixed.first_half_axis
-                ),
-                evidence: format!(
+                ))
+.rows([extra, table.nrows()])
+.evidence(format!(
                     "max abs error {:.2e} against the formula (tolerance {:.1e}); {:.2e} with the axes swapped",
                     fixed.max_abs_error, fixed.tolerance, fixed.max_abs_error_other_order
-                ),
-                limits: "A fixed grid is not trained: nothing about training can be read from it.".into(),
-            });
+                ))
+.limits("A fixed grid is not trained: nothing about training can be read from it."));
         }
     }
     if let Some(s) = &a.separability {
@@ -84,21 +79,17 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
         let first = rows.iter().min().copied().unwrap_or(extra);
         let last = rows.iter().max().copied().unwrap_or(extra) + 1;
         let noise_like = a.noise_like_fraction.unwrap_or(0.0);
-        audit.findings.push(Finding {
-            code: "untrained-rows",
-            severity: Severity::Warning,
-            positions: Some([first, last]),
-            message: format!(
+        audit.findings.push(Finding::warning(FindingCode::UntrainedRows, format!(
                 "{} of {} patches look unlike their grid neighbours (e.g. patch ({}, {}): {}).",
                 a.odd_patch_count,
                 layout.height * layout.width,
                 a.odd_patches.first().map(|p| p.row).unwrap_or(0),
                 a.odd_patches.first().map(|p| p.col).unwrap_or(0),
                 a.odd_patches.first().map(|p| p.reason.as_str()).unwrap_or("")
-            ),
-            evidence: format!("noise-like share of patches {:.2}; median patch norm {:.4}", noise_like, a.norm_median.unwrap_or(f64::NAN)),
-            limits: "Patches at image borders are often less trained; check with images whose content reaches the edges before re-initialising.".into(),
-        });
+            ))
+.rows([first, last])
+.evidence(format!("noise-like share of patches {:.2}; median patch norm {:.4}", noise_like, a.norm_median.unwrap_or(f64::NAN)))
+.limits("Patches at image borders are often less trained; check with images whose content reaches the edges before re-initialising."));
     }
     audit.positions = Some(layout.height * layout.width);
     audit.verdict = verdict;
@@ -142,60 +133,43 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
         )
     };
     if let Some(p) = &a.problem {
-        audit.findings.push(Finding {
-            code: "analysis-problem",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!("The relative-bias analysis could not run fully: {p}."),
-            evidence: String::new(),
-            limits: String::new(),
-        });
+        audit.findings.push(Finding::warning(
+            FindingCode::AnalysisProblem,
+            format!("The relative-bias analysis could not run fully: {p}."),
+        ));
     }
     for row in &a.unreachable_rows {
         match row.looks_like_init {
-            Some(false) => audit.findings.push(Finding {
-                code: "unreachable-bucket-altered",
-                severity: Severity::Warning,
-                positions: Some([row.bucket, row.bucket + 1]),
-                message: format!(
+            Some(false) => audit.findings.push(Finding::warning(FindingCode::UnreachableBucketAltered, format!(
                     "Bucket {} is never produced by the bucket function, so it cannot have been trained, yet it does not look like its initial values.",
                     row.bucket
-                ),
-                evidence: format!(
+                ))
+.rows([row.bucket, row.bucket + 1])
+.evidence(format!(
                     "rms {:.4}, mean {:.4}; reachable rows' median rms {:.4}; rms / init std {}",
                     row.rms,
                     row.mean,
                     row.reachable_rms_median,
                     row.rms_over_init_std.map(|v| format!("{v:.2}")).unwrap_or_else(|| "unknown".into())
-                ),
-                limits: "The row was written by something other than training (a conversion, a different init, or an edit); it has no effect on attention.".into(),
-            }),
-            Some(true) => audit.findings.push(Finding {
-                code: "unreachable-bucket",
-                severity: Severity::Info,
-                positions: Some([row.bucket, row.bucket + 1]),
-                message: format!("Bucket {} is never produced by the bucket function and still holds its initial values, as expected.", row.bucket),
-                evidence: format!("rms {:.4}, mean {:.4}", row.rms, row.mean),
-                limits: "Expected for this bucket layout; nothing to do.".into(),
-            }),
+                ))
+.limits("The row was written by something other than training (a conversion, a different init, or an edit); it has no effect on attention.")),
+            Some(true) => audit.findings.push(Finding::info(FindingCode::UnreachableBucket, format!("Bucket {} is never produced by the bucket function and still holds its initial values, as expected.", row.bucket))
+.rows([row.bucket, row.bucket + 1])
+.evidence(format!("rms {:.4}, mean {:.4}", row.rms, row.mean))
+.limits("Expected for this bucket layout; nothing to do.")),
             None => {}
         }
     }
     if !a.untrained_heads.is_empty() {
-        audit.findings.push(Finding {
-            code: "untrained-heads",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!("Head(s) {:?} show no trend with distance and look like initial noise.", a.untrained_heads),
-            evidence: a
+        audit.findings.push(Finding::warning(FindingCode::UntrainedHeads, format!("Head(s) {:?} show no trend with distance and look like initial noise.", a.untrained_heads))
+.evidence(a
                 .head_trends
                 .iter()
                 .filter(|h| h.looks_untrained)
                 .map(|h| format!("head {}: {} (std {:.4})", h.head, h.trend, h.std))
                 .collect::<Vec<_>>()
-                .join("; "),
-            limits: "A head can legitimately ignore distance; confirm with attention patterns on real inputs.".into(),
-        });
+                .join("; "))
+.limits("A head can legitimately ignore distance; confirm with attention patterns on real inputs."));
     }
     let decaying = a
         .head_trends
@@ -282,14 +256,9 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
         } else {
             format!("factor {:.4}", a.factor)
         };
-        findings.push(Finding {
-            code: "rotary-scaled",
-            severity: Severity::Info,
-            positions: None,
-            message: format!("Rotary frequencies are rescaled ({}), implying a context extension by {:.4}x.", a.scaling, a.factor),
-            evidence: detail,
-            limits: "The recipe is read from the frequencies alone; the fine-tuning that should accompany it is not visible here.".into(),
-        });
+        findings.push(Finding::info(FindingCode::RotaryScaled, format!("Rotary frequencies are rescaled ({}), implying a context extension by {:.4}x.", a.scaling, a.factor))
+.evidence(detail)
+.limits("The recipe is read from the frequencies alone; the fine-tuning that should accompany it is not visible here."));
     }
     if let Some(p) = &a.low_precision {
         let worst = p
@@ -298,17 +267,12 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
             .map(|e| format!("{:.2} rad at {}", e.radians, e.position))
             .collect::<Vec<_>>()
             .join(", ");
-        findings.push(Finding {
-            code: "low-precision",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!("The stored frequencies are exactly the {} rounding of the exact ones: they were cast to {} at some point.", p.dtype, p.dtype),
-            evidence: format!(
+        findings.push(Finding::warning(FindingCode::LowPrecision, format!("The stored frequencies are exactly the {} rounding of the exact ones: they were cast to {} at some point.", p.dtype, p.dtype))
+.evidence(format!(
                 "{} of {} entries equal the rounded exact value; max relative error {:.2e}; phase error {}",
                 p.entries_matching_rounded_exact, p.entries, p.max_rel_error, worst
-            ),
-            limits: "Inference code that recomputes the frequencies in f32 is unaffected; code that uses the stored buffer inherits the phase error.".into(),
-        });
+            ))
+.limits("Inference code that recomputes the frequencies in f32 is unaffected; code that uses the stored buffer inherits the phase error."));
     }
     if let Some(w) = &a.wavelengths
         && let (Some(ctx), Some(beyond)) = (w.context, w.beyond_context)
@@ -318,14 +282,10 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
             format!("{verdict}; {beyond} frequencies never complete a turn within {ctx} tokens");
     }
     if let Some(p) = &a.problem {
-        findings.push(Finding {
-            code: "analysis-problem",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!("The rotary analysis could not run fully: {p}."),
-            evidence: String::new(),
-            limits: String::new(),
-        });
+        findings.push(Finding::warning(
+            FindingCode::AnalysisProblem,
+            format!("The rotary analysis could not run fully: {p}."),
+        ));
     }
     (verdict, findings)
 }
@@ -351,8 +311,50 @@ pub fn rotary(audit: &mut TableAudit, values: ArrayView1<f64>, config: Option<&C
     audit.rotary = Some(a);
 }
 
-/// The config-derived rotary entry, when the config names a rotary base.
-pub fn rotary_from_config(config: Option<&ConfigHints>) -> Option<RotaryAnalysis> {
+/// The config-derived rotary entry with its verdict and findings, when the config names
+/// a rotary base (and no frequency tensor is stored: the caller checks).
+pub fn config_rotary(config: Option<&ConfigHints>) -> Option<ConfigRotary> {
+    let analysis = rotary_from_config(config)?;
+    let (verdict, mut findings) = rotary_findings(&analysis);
+    findings.sort_by_key(|f| std::cmp::Reverse(f.severity));
+    Some(ConfigRotary {
+        analysis,
+        verdict,
+        findings,
+    })
+}
+
+/// `rotary-layers-differ`, when the stored per-layer rotary vectors do not agree.
+pub fn rotary_layers(agreement: &LayerAgreement) -> Option<Finding> {
+    if agreement.identical {
+        return None;
+    }
+    Some(
+        Finding::warning(
+            FindingCode::RotaryLayersDiffer,
+            format!(
+                "{} of {} stored rotary vectors differ from the first one.",
+                agreement.differing.len(),
+                agreement.count
+            ),
+        )
+        .evidence(
+            agreement
+                .differing
+                .iter()
+                .take(3)
+                .map(|d| format!("{}: max rel diff {:.2e}", d.name, d.max_rel_diff))
+                .collect::<Vec<_>>()
+                .join("; "),
+        )
+        .limits(
+            "Layers may legitimately use different bases (e.g. local and global attention layers).",
+        ),
+    )
+}
+
+/// The rotary analysis implied by the config's `rope_theta` / `rope_scaling`.
+fn rotary_from_config(config: Option<&ConfigHints>) -> Option<RotaryAnalysis> {
     let c = config?;
     let theta = c.rope_theta.as_ref()?.value;
     let head_dim = hint_usize(&c.head_dim)
@@ -378,34 +380,32 @@ pub fn position_ids(audit: &mut TableAudit, values: &[i64], table_rows: Option<u
         audit.verdict = format!("0..{} consecutive (offset {})", check.length, check.offset);
     } else {
         audit.verdict = "not a consecutive index".into();
-        audit.findings.push(Finding {
-            code: "position-ids-mismatch",
-            severity: Severity::Warning,
-            positions: check.first_mismatch.map(|i| [i, check.length]),
-            message: format!(
+        audit.findings.push(Finding::warning(FindingCode::PositionIdsMismatch, format!(
                 "The buffer is not the consecutive index offset..offset+n; first mismatch at element {}.",
                 check.first_mismatch.map(|i| i.to_string()).unwrap_or_else(|| "?".into())
-            ),
-            evidence: format!("values range {:?}, length {}", check.value_range, check.length),
-            limits: "Some models build position ids at run time and never read this buffer.".into(),
-        });
+            ))
+.ranges(check.first_mismatch.map(|i| [i, check.length]))
+.evidence(format!("values range {:?}, length {}", check.value_range, check.length))
+.limits("Some models build position ids at run time and never read this buffer."));
     }
     if let Some(rows) = table_rows
         && check.contiguous
         && check.length as u64 + check.offset.max(0) as u64 > rows as u64
     {
-        audit.findings.push(Finding {
-            code: "length-mismatch",
-            severity: Severity::Warning,
-            positions: None,
-            message: format!(
-                "The buffer indexes up to {} but the position table has {rows} rows.",
-                check.length as i64 + check.offset
-            ),
-            evidence: format!("buffer length {}, offset {}", check.length, check.offset),
-            limits: "Indices past the table would fail at run time if this buffer were used."
-                .into(),
-        });
+        audit.findings.push(
+            Finding::warning(
+                FindingCode::LengthMismatch,
+                format!(
+                    "The buffer indexes up to {} but the position table has {rows} rows.",
+                    check.length as i64 + check.offset
+                ),
+            )
+            .evidence(format!(
+                "buffer length {}, offset {}",
+                check.length, check.offset
+            ))
+            .limits("Indices past the table would fail at run time if this buffer were used."),
+        );
     }
     audit.positions = Some(check.length);
     audit.position_ids = Some(check);
