@@ -11,6 +11,8 @@ use std::path::Path;
 use serde::Serialize;
 use serde_json::Value;
 
+pub use crate::checkpoint::limits::MAX_CONFIG_BYTES;
+
 /// One value found in a config, with the key it came from.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Hint<T> {
@@ -121,10 +123,23 @@ fn float(root: &Value, keys: &[&str]) -> Option<Hint<f64>> {
 impl ConfigHints {
     /// Reads hints from a `config.json`. Returns a one-line reason when the file cannot
     /// be read or is not a JSON object.
+    ///
+    /// Only a regular file of at most [`MAX_CONFIG_BYTES`] (16 MiB) is read: the size is
+    /// checked before reading, and a named pipe never blocks the run.
     pub fn read(path: &Path) -> Result<ConfigHints, String> {
-        let text = std::fs::read_to_string(path).map_err(|e| format!("cannot read: {e}"))?;
-        let value: Value =
-            serde_json::from_str(&text).map_err(|e| format!("not valid JSON: {e}"))?;
+        use crate::checkpoint::CheckpointError;
+        let bytes = crate::checkpoint::read_small_file(path, MAX_CONFIG_BYTES, "config.json")
+            .map_err(|e| match e {
+                CheckpointError::Io { source, .. } => format!("cannot read: {source}"),
+                CheckpointError::Invalid { problem, .. }
+                | CheckpointError::NotACheckpoint { problem, .. } => problem,
+            })?;
+        let value: Value = serde_json::from_slice(&bytes).map_err(|e| {
+            format!(
+                "not valid JSON: {}",
+                crate::checkpoint::limits::shown_max(&e.to_string(), 240)
+            )
+        })?;
         if !value.is_object() {
             return Err("not a JSON object".to_string());
         }

@@ -479,12 +479,22 @@ fn classify(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Option<Detected>, Check
 /// exist: the caller checks with [`check_forced`]).
 pub fn detect(ckpt: &Checkpoint, forced: &[String]) -> Result<Detection, CheckpointError> {
     let mut out = Detection::default();
+    // Memory and time limits whatever the file declares (checkpoint::limits).
+    let mut budget = crate::checkpoint::AnalysisBudget::new();
     for t in &ckpt.tensors {
         if let Some(reason) = t.dtype.unsupported_reason() {
             out.skipped.push(Skipped {
                 name: t.name.clone(),
                 dtype: t.dtype.to_string(),
                 reason,
+            });
+            continue;
+        }
+        if let Some(reason) = budget.admit(t) {
+            out.skipped.push(Skipped {
+                name: t.name.clone(),
+                dtype: t.dtype.to_string(),
+                reason: format!("not examined: {reason}"),
             });
             continue;
         }
@@ -499,6 +509,16 @@ pub fn detect(ckpt: &Checkpoint, forced: &[String]) -> Result<Detection, Checkpo
         } else {
             classify(ckpt, t)?
         };
+        if found.is_some()
+            && let Some(reason) = budget.admit_table()
+        {
+            out.skipped.push(Skipped {
+                name: t.name.clone(),
+                dtype: t.dtype.to_string(),
+                reason: format!("not analysed: {reason}"),
+            });
+            continue;
+        }
         out.tables.extend(found);
     }
     Ok(out)

@@ -103,6 +103,9 @@ pub struct RepeatedBlock {
     pub max_abs_difference: f64,
 }
 
+/// Recent rows remembered per sketch cell when looking for a row's earlier copies.
+const PARTNERS: usize = 8;
+
 /// Finds the longest stretch in which row `i` equals row `i + P` within `tolerance`
 /// (max-abs difference), over every period P with at least two full copies.
 ///
@@ -112,12 +115,25 @@ pub struct RepeatedBlock {
 /// result      = the stretch with the most rows; ties go to the smaller P
 /// ```
 ///
-/// `tolerance` 0 asks for bit-exact copies (up to ±0). Candidates are found by comparing
-/// four fixed random projections of each row (a necessary condition, since
-/// |pᵀ(a − b)| ≤ ‖p‖₁·max|a − b|), then checked on the full rows. Zero rows never match
-/// (they are reported by the hygiene check, not as copies). Returns None when no stretch
-/// qualifies, for tables with fewer than 2 rows, or for a negative or NaN tolerance.
+/// `tolerance` 0 asks for bit-exact copies (up to ±0). Each row is reduced to four fixed
+/// random projections (a necessary condition for a match, since
+/// |pᵀ(a − b)| ≤ ‖p‖₁·max|a − b|). Rows are bucketed by their first projection in cells as
+/// wide as its slack, so a row's possible copies lie in its own or a neighbouring cell;
+/// each cell remembers its [`PARTNERS`] (8) most recent rows. Runs of rows whose partner
+/// lies at the same lag P give the candidate stretches, which are then checked on the
+/// full rows, longest first. Zero rows never match (they are reported by the hygiene
+/// check, not as copies). Returns None when no stretch qualifies, for tables with fewer
+/// than 2 rows, or for a negative or NaN tolerance.
+///
+/// Cost: O(n·d) for the projections, O(n·PARTNERS) hash-map steps for the candidates and
+/// at most O(n·PARTNERS·d) to verify them: near-linear in the table's size (an earlier
+/// version tried every period against every row, O(n²)). The bound is by sampling: a row
+/// is compared only with the 8 most recent rows of its neighbourhood, so a copy whose
+/// lag is longer than 8 nearer look-alikes (a block in which many rows agree within the
+/// tolerance) is seen through those nearer rows instead; exact tilings of distinct rows
+/// are always found.
 pub fn repeated_block(table: ArrayView2<f64>, tolerance: f64) -> Option<RepeatedBlock> {
+    use std::collections::HashMap;
     let (n, d) = table.dim();
     if n < 2 || d == 0 || tolerance.is_nan() || tolerance < 0.0 {
         return None;
@@ -143,34 +159,66 @@ pub fn repeated_block(table: ArrayView2<f64>, tolerance: f64) -> Option<Repeated
         .collect();
     let sketch = table.dot(&proj);
     // Rounding of the projections themselves: allow a few ulps of each sketch value.
+    let biggest = max_abs(table);
     let slack: Vec<f64> = (0..M)
-        .map(|m| tolerance * l1[m] + 8.0 * f64::EPSILON * l1[m] * max_abs(table))
+        .map(|m| tolerance * l1[m] + 8.0 * f64::EPSILON * l1[m] * biggest)
         .collect();
     let maybe = |i: usize, j: usize| {
         usable[i]
             && usable[j]
             && (0..M).all(|m| (sketch[[i, m]] - sketch[[j, m]]).abs() <= slack[m])
     };
-    // Candidate stretches from the sketch, longest first.
-    let mut cands: Vec<(usize, usize, usize)> = Vec::new(); // (covered, period, start)
-    for p in 1..=n / 2 {
-        let mut run_start: Option<usize> = None;
-        for i in 0..=n - p {
-            let ok = i < n - p && maybe(i, i + p);
-            match (ok, run_start) {
-                (true, None) => run_start = Some(i),
-                (false, Some(s)) => {
-                    let covered = i - s + p;
-                    if covered >= 2 * p {
-                        cands.push((covered, p, s));
+    let width = slack[0];
+    if !(width.is_finite() && width > 0.0) {
+        return None;
+    }
+    let cell_of = |i: usize| (sketch[[i, 0]] / width).floor() as i64;
+    // Candidate stretches (covered, period, start) from runs of rows with a partner at
+    // the same lag.
+    let mut cands: Vec<(usize, usize, usize)> = Vec::new();
+    let mut cells: HashMap<i64, Vec<usize>> = HashMap::new();
+    // Active runs: lag → first (later) row of the run.
+    let mut active: HashMap<usize, usize> = HashMap::new();
+    let mut next: HashMap<usize, usize> = HashMap::new();
+    let close = |lag: usize, a: usize, b: usize, cands: &mut Vec<(usize, usize, usize)>| {
+        // Later rows a..=b match rows a−lag..=b−lag: stretch [a − lag, b + 1).
+        let covered = b + 1 - a + lag;
+        if covered >= 2 * lag {
+            cands.push((covered, lag, a - lag));
+        }
+    };
+    for i in 0..n {
+        next.clear();
+        if usable[i] {
+            let c = cell_of(i);
+            for cell in [c.saturating_sub(1), c, c.saturating_add(1)] {
+                if let Some(rows) = cells.get(&cell) {
+                    for &j in rows {
+                        let lag = i - j;
+                        if lag <= n / 2 && maybe(i, j) {
+                            let start = active.get(&lag).copied().unwrap_or(i);
+                            next.insert(lag, start);
+                        }
                     }
-                    run_start = None;
                 }
-                _ => {}
+            }
+            let slot = cells.entry(c).or_default();
+            if slot.len() == PARTNERS {
+                slot.remove(0);
+            }
+            slot.push(i);
+        }
+        for (&lag, &a) in &active {
+            if !next.contains_key(&lag) {
+                close(lag, a, i - 1, &mut cands);
             }
         }
+        std::mem::swap(&mut active, &mut next);
     }
-    cands.sort_by(|a, b| b.0.cmp(&a.0).then(a.1.cmp(&b.1)));
+    for (&lag, &a) in &active {
+        close(lag, a, n - 1, &mut cands);
+    }
+    cands.sort_by(|a, b| b.0.cmp(&a.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
     let mut best: Option<RepeatedBlock> = None;
     for (covered, p, s) in cands {
         if best.as_ref().is_some_and(|b| {
@@ -275,6 +323,36 @@ mod tests {
         assert!(repeated_block(array![[1.0], [1.0]].view(), f64::NAN).is_none());
         let two = repeated_block(array![[1.0], [1.0]].view(), 0.0).unwrap();
         assert_eq!((two.period, two.rows_covered), (1, 2));
+    }
+
+    #[test]
+    fn long_single_column_tables_stay_near_linear() {
+        // 400,000 x 1 (the size that took a minute with the quadratic search): noise has no
+        // copies; the same noise tiled with period 1000 is found whole. No timing asserted;
+        // the test only has to finish (cost O(n·8)).
+        let t = noise(400_000, 1, 5);
+        assert!(repeated_block(t.view(), 1e-6).is_none());
+        let block = noise(1000, 1, 6);
+        let tiled = Array2::from_shape_fn((400_000, 1), |(i, _)| block[[i % 1000, 0]]);
+        let r = repeated_block(tiled.view(), 0.0).unwrap();
+        assert_eq!((r.period, r.start, r.end), (1000, 0, 400_000));
+        // A constant column: every row copies the previous one, period 1 covers it all.
+        let flat = Array2::from_elem((200_000, 1), 0.25);
+        let r = repeated_block(flat.view(), 0.0).unwrap();
+        assert_eq!((r.period, r.rows_covered), (1, 200_000));
+    }
+
+    #[test]
+    fn a_block_with_an_internal_repeat_is_still_found_at_its_period() {
+        // Invented: a 12-row block whose rows 3 and 7 are equal, tiled 4 times. The nearest
+        // look-alike of row 7 of each copy is row 3 (lag 4), but the lag-12 partner is also
+        // remembered, so the whole tiling is found.
+        let mut block = noise(12, 3, 7);
+        let r3 = block.row(3).to_owned();
+        block.row_mut(7).assign(&r3);
+        let t = Array2::from_shape_fn((48, 3), |(i, j)| block[[i % 12, j]]);
+        let r = repeated_block(t.view(), 0.0).unwrap();
+        assert_eq!((r.period, r.start, r.end), (12, 0, 48));
     }
 
     #[test]

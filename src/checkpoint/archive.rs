@@ -6,11 +6,12 @@
 //! members with the byte range or the member name, validated against the file's length,
 //! so the format modules only deal with their own headers.
 
+use std::collections::HashSet;
 use std::io::Read;
 
 use zip::CompressionMethod;
 
-use super::{CheckpointError, SourceFile, Storage};
+use super::{CheckpointError, SourceFile, Storage, shown};
 
 /// Most members an archive may have (a state dict has one member per storage).
 const MAX_MEMBERS: usize = 4_000_000;
@@ -49,6 +50,7 @@ pub(crate) fn members(file: &SourceFile) -> Result<Vec<Member>, CheckpointError>
         ));
     }
     let mut out = Vec::with_capacity(archive.len());
+    let mut seen: HashSet<String> = HashSet::with_capacity(archive.len());
     for i in 0..archive.len() {
         let entry = archive.by_index_raw(i).map_err(|e| {
             CheckpointError::invalid(&file.path, format!("zip member #{i} is unreadable: {e}"))
@@ -56,13 +58,24 @@ pub(crate) fn members(file: &SourceFile) -> Result<Vec<Member>, CheckpointError>
         let name = entry.name().map(|n| n.into_owned()).map_err(|e| {
             CheckpointError::invalid(&file.path, format!("zip member #{i} has a bad name: {e}"))
         })?;
+        // Two members of one name: readers differ on which one they take, so a first
+        // copy could hide from one reader what another sees. Refused.
+        if !seen.insert(name.clone()) {
+            return Err(CheckpointError::invalid(
+                &file.path,
+                format!(
+                    "zip archive holds two members named `{}`; posaudit refuses ambiguous archives",
+                    shown(&name)
+                ),
+            ));
+        }
         if entry.is_dir() {
             continue;
         }
         if entry.encrypted() {
             return Err(CheckpointError::invalid(
                 &file.path,
-                format!("zip member `{name}` is encrypted"),
+                format!("zip member `{}` is encrypted", shown(&name)),
             ));
         }
         let size = entry.size();
@@ -71,7 +84,7 @@ pub(crate) fn members(file: &SourceFile) -> Result<Vec<Member>, CheckpointError>
                 let start = entry.data_start().ok_or_else(|| {
                     CheckpointError::invalid(
                         &file.path,
-                        format!("zip member `{name}`: data offset unknown"),
+                        format!("zip member `{}`: data offset unknown", shown(&name)),
                     )
                 })?;
                 let end = start.checked_add(size);
@@ -86,7 +99,8 @@ pub(crate) fn members(file: &SourceFile) -> Result<Vec<Member>, CheckpointError>
                         return Err(CheckpointError::invalid(
                             &file.path,
                             format!(
-                                "zip member `{name}`: bytes {start}..{} lie past the end of the file ({} bytes): truncated",
+                                "zip member `{}`: bytes {start}..{} lie past the end of the file ({} bytes): truncated",
+                                shown(&name),
                                 start.saturating_add(size),
                                 bytes.len()
                             ),
@@ -102,7 +116,8 @@ pub(crate) fn members(file: &SourceFile) -> Result<Vec<Member>, CheckpointError>
                     return Err(CheckpointError::invalid(
                         &file.path,
                         format!(
-                            "zip member `{name}` declares {size} bytes inflated from {} compressed bytes, more than deflate can expand",
+                            "zip member `{}` declares {size} bytes inflated from {} compressed bytes, more than deflate can expand",
+                            shown(&name),
                             entry.compressed_size()
                         ),
                     ));
@@ -110,13 +125,16 @@ pub(crate) fn members(file: &SourceFile) -> Result<Vec<Member>, CheckpointError>
                 Storage::ZipMember {
                     member: name.clone(),
                     skip: 0,
+                    size,
+                    compressed: entry.compressed_size(),
                 }
             }
             other => {
                 return Err(CheckpointError::invalid(
                     &file.path,
                     format!(
-                        "zip member `{name}` uses compression {other}, which posaudit does not read (stored and deflate only)"
+                        "zip member `{}` uses compression {other}, which posaudit does not read (stored and deflate only)",
+                        shown(&name)
                     ),
                 ));
             }
@@ -148,11 +166,11 @@ pub(crate) fn member_prefix(
                     CheckpointError::invalid(&file.path, format!("not a readable zip archive: {e}"))
                 })?;
             let entry = archive.by_name(name).map_err(|e| {
-                CheckpointError::invalid(&file.path, format!("zip member `{name}`: {e}"))
+                CheckpointError::invalid(&file.path, format!("zip member `{}`: {e}", shown(name)))
             })?;
             let mut out = Vec::new();
             entry.take(n as u64).read_to_end(&mut out).map_err(|e| {
-                CheckpointError::invalid(&file.path, format!("zip member `{name}`: {e}"))
+                CheckpointError::invalid(&file.path, format!("zip member `{}`: {e}", shown(name)))
             })?;
             Ok(out)
         }

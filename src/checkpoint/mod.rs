@@ -13,12 +13,14 @@
 mod archive;
 pub mod dtype;
 pub mod gguf;
+pub mod limits;
 pub mod numpy;
 pub mod pickle;
 pub mod pytorch;
 pub mod safetensors;
 
 use std::borrow::Cow;
+use std::collections::HashMap;
 use std::fs::File;
 use std::path::{Path, PathBuf};
 
@@ -26,6 +28,7 @@ use memmap2::Mmap;
 use ndarray::{Array1, Array2, ArrayD, IxDyn};
 
 pub use dtype::Dtype;
+pub use limits::{AnalysisBudget, shown};
 
 use crate::config::ConfigHints;
 
@@ -61,7 +64,7 @@ impl std::fmt::Display for Format {
 #[derive(Debug, thiserror::Error)]
 pub enum CheckpointError {
     /// The path (or a file the checkpoint names) could not be opened or read.
-    #[error("{}: cannot read: {source}", path.display())]
+    #[error("{}: cannot read: {source}", limits::escape_controls(&path.display().to_string()))]
     Io {
         /// The file.
         path: PathBuf,
@@ -69,7 +72,7 @@ pub enum CheckpointError {
         source: std::io::Error,
     },
     /// The file is not a valid checkpoint of its format.
-    #[error("{}: {problem}", path.display())]
+    #[error("{}: {}", limits::escape_controls(&path.display().to_string()), limits::escape_controls(problem))]
     Invalid {
         /// The file.
         path: PathBuf,
@@ -77,7 +80,7 @@ pub enum CheckpointError {
         problem: String,
     },
     /// The path holds nothing posaudit can open.
-    #[error("{}: {problem}", path.display())]
+    #[error("{}: {}", limits::escape_controls(&path.display().to_string()), limits::escape_controls(problem))]
     NotACheckpoint {
         /// The file or folder.
         path: PathBuf,
@@ -121,6 +124,10 @@ pub enum Storage {
         /// Bytes at the start of the inflated member that precede the storage (the
         /// header of an `.npy` member of an `.npz`; 0 for torch storages).
         skip: usize,
+        /// The member's inflated size as the archive declares it.
+        size: u64,
+        /// The member's compressed size (bytes really in the file).
+        compressed: u64,
     },
 }
 
@@ -152,6 +159,26 @@ impl TensorInfo {
             .iter()
             .try_fold(1usize, |a, &b| a.checked_mul(b))
             .unwrap_or(usize::MAX)
+    }
+
+    /// One past the furthest storage element the tensor addresses (offset + Σ (dim−1)·
+    /// stride + 1), 0 for an empty tensor; `None` on overflow.
+    pub fn extent(&self) -> Option<usize> {
+        let n = self.numel();
+        if n == 0 {
+            return Some(0);
+        }
+        let last = match &self.strides {
+            None => self.element_offset.checked_add(n - 1),
+            Some(strides) => self
+                .shape
+                .iter()
+                .zip(strides)
+                .try_fold(self.element_offset, |acc, (d, s)| {
+                    acc.checked_add((d - 1).checked_mul(*s)?)
+                }),
+        };
+        last?.checked_add(1)
     }
 
     /// Bytes of the tensor's values in its stored type, when the type has a fixed size.
@@ -195,16 +222,11 @@ impl std::fmt::Debug for SourceFile {
 }
 
 impl SourceFile {
-    /// Opens and maps a file read-only. An empty file maps to an empty slice.
+    /// Opens and maps a file read-only. An empty file maps to an empty slice. Only
+    /// regular files are opened ([`open_regular`]): a named pipe called
+    /// `model.safetensors` is refused instead of blocking.
     pub fn open(path: &Path) -> Result<Self, CheckpointError> {
-        let file = File::open(path).map_err(|e| CheckpointError::io(path, e))?;
-        let meta = file.metadata().map_err(|e| CheckpointError::io(path, e))?;
-        if meta.is_dir() {
-            return Err(CheckpointError::invalid(
-                path,
-                "is a folder, expected a file",
-            ));
-        }
+        let (file, meta) = open_regular(path)?;
         let map = if meta.len() == 0 {
             None
         } else {
@@ -231,6 +253,71 @@ impl SourceFile {
             .map(|n| n.to_string_lossy().into_owned())
             .unwrap_or_else(|| self.path.display().to_string())
     }
+}
+
+/// Opens `path` for reading only when it is a regular file (following symbolic links).
+///
+/// The type is checked before opening (a FIFO would block `open` until a writer comes),
+/// the open itself is non-blocking on Unix, and the opened file's type is checked again
+/// (the name could have been swapped in between). Used for weights, shard indexes and
+/// `config.json` alike.
+pub fn open_regular(path: &Path) -> Result<(File, std::fs::Metadata), CheckpointError> {
+    let not_regular = |meta: &std::fs::Metadata| {
+        let what = if meta.is_dir() {
+            "is a folder, expected a file".to_string()
+        } else {
+            "is not a regular file (a named pipe, socket or device); posaudit opens regular files only".to_string()
+        };
+        CheckpointError::invalid(path, what)
+    };
+    let before = std::fs::metadata(path).map_err(|e| CheckpointError::io(path, e))?;
+    if !before.is_file() {
+        return Err(not_regular(&before));
+    }
+    let mut options = std::fs::OpenOptions::new();
+    options.read(true);
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::OpenOptionsExt;
+        options.custom_flags(libc::O_NONBLOCK);
+    }
+    let file = options
+        .open(path)
+        .map_err(|e| CheckpointError::io(path, e))?;
+    let meta = file.metadata().map_err(|e| CheckpointError::io(path, e))?;
+    if !meta.is_file() {
+        return Err(not_regular(&meta));
+    }
+    Ok((file, meta))
+}
+
+/// Reads a small regular file whole, refusing one larger than `limit` bytes before
+/// reading anything. `what` names the limit in the error ("config.json", "shard index").
+pub fn read_small_file(path: &Path, limit: u64, what: &str) -> Result<Vec<u8>, CheckpointError> {
+    use std::io::Read;
+    let (file, meta) = open_regular(path)?;
+    if meta.len() > limit {
+        return Err(CheckpointError::invalid(
+            path,
+            format!(
+                "is {} bytes, more than the {} MiB limit for a {what}",
+                meta.len(),
+                limit >> 20
+            ),
+        ));
+    }
+    let mut out = Vec::with_capacity(meta.len() as usize);
+    // The length can grow after the check: never read more than the limit (+1 to notice).
+    file.take(limit + 1)
+        .read_to_end(&mut out)
+        .map_err(|e| CheckpointError::io(path, e))?;
+    if out.len() as u64 > limit {
+        return Err(CheckpointError::invalid(
+            path,
+            format!("is more than the {} MiB limit for a {what}", limit >> 20),
+        ));
+    }
+    Ok(out)
 }
 
 /// What a format module returns from opening a path.
@@ -263,6 +350,67 @@ pub struct Checkpoint {
     pub config: Option<ConfigHints>,
     /// Non-fatal problems (e.g. a broken `config.json`).
     pub warnings: Vec<String>,
+    /// Position of each tensor in `tensors` by name (names are unique: checked at open).
+    by_name: HashMap<String, usize>,
+}
+
+/// Checks the tensor names of an opened checkpoint against [`limits::MAX_NAME_BYTES`]
+/// and [`limits::MAX_NAMES_TOTAL`], and refuses a name held twice (two copies would hide
+/// one of them: which one a loader uses depends on the loader). Returns the name index.
+fn index_names(opened: &Opened, path: &Path) -> Result<HashMap<String, usize>, CheckpointError> {
+    let file_path = |i: usize| {
+        opened
+            .files
+            .get(i)
+            .map(|f| f.path.clone())
+            .unwrap_or_else(|| path.to_path_buf())
+    };
+    let mut total = 0usize;
+    let mut by_name: HashMap<String, usize> = HashMap::with_capacity(opened.tensors.len());
+    for (i, t) in opened.tensors.iter().enumerate() {
+        if t.name.len() > limits::MAX_NAME_BYTES {
+            return Err(CheckpointError::invalid(
+                &file_path(t.file),
+                format!(
+                    "tensor name `{}` is {} bytes, more than the {}-byte limit for a name",
+                    shown(&t.name),
+                    t.name.len(),
+                    limits::MAX_NAME_BYTES
+                ),
+            ));
+        }
+        total += t.name.len();
+        if total > limits::MAX_NAMES_TOTAL {
+            return Err(CheckpointError::invalid(
+                &file_path(t.file),
+                format!(
+                    "tensor names take more than {} MiB in all (the limit)",
+                    limits::MAX_NAMES_TOTAL >> 20
+                ),
+            ));
+        }
+        if let Some(&first) = by_name.get(&t.name) {
+            let a = &opened.tensors[first];
+            let where_ = if a.file == t.file {
+                format!("twice in {}", opened.files[t.file].display_name())
+            } else {
+                format!(
+                    "in both {} and {}",
+                    opened.files[a.file].display_name(),
+                    opened.files[t.file].display_name()
+                )
+            };
+            return Err(CheckpointError::invalid(
+                &file_path(t.file),
+                format!(
+                    "tensor `{}` is stored {where_}; posaudit cannot tell which copy is meant, so it reads neither (keep one copy, or name one file)",
+                    shown(&t.name)
+                ),
+            ));
+        }
+        by_name.insert(t.name.clone(), i);
+    }
+    Ok(by_name)
 }
 
 /// Guesses the format of one file from its first bytes, then its extension.
@@ -314,9 +462,12 @@ impl Checkpoint {
         } else {
             path.parent().map(Path::to_path_buf).unwrap_or_default()
         };
+        let by_name = index_names(&opened, path)?;
         let mut warnings = opened.warnings;
         let config_path = folder.join("config.json");
-        let mut config = if config_path.is_file() {
+        // Anything named config.json is looked at (a named pipe or a huge file is refused
+        // by `ConfigHints::read` with a warning, never read).
+        let mut config = if std::fs::metadata(&config_path).is_ok() {
             match ConfigHints::read(&config_path) {
                 Ok(c) => Some(c),
                 Err(problem) => {
@@ -340,12 +491,13 @@ impl Checkpoint {
             tensors: opened.tensors,
             config,
             warnings,
+            by_name,
         })
     }
 
-    /// The tensor with this exact name.
+    /// The tensor with this exact name (a hash lookup: names are unique).
     pub fn tensor(&self, name: &str) -> Option<&TensorInfo> {
-        self.tensors.iter().find(|t| t.name == name)
+        self.by_name.get(name).and_then(|&i| self.tensors.get(i))
     }
 
     /// Total bytes of all files.
@@ -387,13 +539,25 @@ impl Checkpoint {
                         )
                     })
             }
-            Storage::ZipMember { member, skip } => {
-                let mut bytes = read_zip_member(file, member)?;
+            Storage::ZipMember { member, skip, .. } => {
+                // Inflate only the bytes the tensor can touch, never the declared size.
+                let size = t.dtype.size().unwrap_or(1);
+                let want = t
+                    .extent()
+                    .and_then(|n| n.checked_mul(size)?.checked_add(*skip))
+                    .ok_or_else(|| {
+                        CheckpointError::invalid(
+                            &file.path,
+                            format!("tensor `{}`: its extent overflows", shown(&t.name)),
+                        )
+                    })?;
+                let mut bytes = read_zip_member(file, member, want as u64)?;
                 if *skip > bytes.len() {
                     return Err(CheckpointError::invalid(
                         &file.path,
                         format!(
-                            "zip member `{member}` holds {} bytes, fewer than its {skip}-byte header",
+                            "zip member `{}` holds {} bytes, fewer than its {skip}-byte header",
+                            shown(member),
                             bytes.len()
                         ),
                     ));
@@ -401,6 +565,19 @@ impl Checkpoint {
                 bytes.drain(..*skip);
                 Ok(Cow::Owned(bytes))
             }
+        }
+    }
+
+    /// Refuses to read `elements` elements of a tensor when that breaks a budget
+    /// ([`limits::tensor_problem`]): nothing is allocated or inflated from a declared
+    /// size before this check.
+    fn check_budget(&self, t: &TensorInfo, elements: usize) -> Result<(), CheckpointError> {
+        match limits::tensor_problem(t, elements) {
+            None => Ok(()),
+            Some(problem) => Err(CheckpointError::invalid(
+                &self.file_of(t)?.path,
+                format!("tensor `{}`: {problem}", shown(&t.name)),
+            )),
         }
     }
 
@@ -435,29 +612,14 @@ impl Checkpoint {
                 ),
             )
         })?;
-        let n = t.numel();
-        if n == 0 {
-            return Ok(());
-        }
-        // The furthest element any index touches: offset + Σ (dim-1)·stride.
-        let last = match &t.strides {
-            None => t.element_offset.checked_add(n - 1),
-            Some(strides) => t
-                .shape
-                .iter()
-                .zip(strides)
-                .try_fold(t.element_offset, |acc, (d, s)| {
-                    acc.checked_add((d - 1).checked_mul(*s)?)
-                }),
-        };
-        let needed = last.and_then(|l| l.checked_add(1)?.checked_mul(size));
+        let needed = t.extent().and_then(|l| l.checked_mul(size));
         match needed {
             Some(needed) if needed <= bytes.len() => Ok(()),
             _ => Err(CheckpointError::invalid(
                 file,
                 format!(
                     "tensor `{}` of shape {:?} needs more bytes than its storage holds ({} bytes)",
-                    t.name,
+                    shown(&t.name),
                     t.shape,
                     bytes.len()
                 ),
@@ -467,6 +629,7 @@ impl Checkpoint {
 
     /// Reads a whole tensor as f64.
     pub fn read_f64(&self, t: &TensorInfo) -> Result<ArrayD<f64>, CheckpointError> {
+        self.check_budget(t, t.numel())?;
         let bytes = self.storage_bytes(t)?;
         self.check_readable(t, &bytes)?;
         let n = t.numel();
@@ -505,6 +668,7 @@ impl Checkpoint {
         let (nrows, ncols) = t.as_table_dims().ok_or_else(|| {
             CheckpointError::invalid(&path, format!("tensor `{}` is a scalar", t.name))
         })?;
+        self.check_budget(t, rows.len().saturating_mul(ncols))?;
         let bytes = self.storage_bytes(t)?;
         self.check_readable(t, &bytes)?;
         let mut out = Array2::<f64>::zeros((rows.len(), ncols));
@@ -549,6 +713,7 @@ impl Checkpoint {
                 ),
             ));
         }
+        self.check_budget(t, t.numel())?;
         let bytes = self.storage_bytes(t)?;
         self.check_readable(t, &bytes)?;
         let n = t.numel();
@@ -565,30 +730,26 @@ impl Checkpoint {
     }
 }
 
-/// Decompresses one member of a zip archive held in `file`.
-fn read_zip_member(file: &SourceFile, member: &str) -> Result<Vec<u8>, CheckpointError> {
+/// Decompresses the first `limit` bytes of one member of a zip archive held in `file`
+/// (fewer when the member is shorter). The buffer grows with the bytes really inflated,
+/// never with the size the archive declares.
+fn read_zip_member(
+    file: &SourceFile,
+    member: &str,
+    limit: u64,
+) -> Result<Vec<u8>, CheckpointError> {
     use std::io::Read;
     let mut archive = zip::ZipArchive::new(std::io::Cursor::new(file.bytes())).map_err(|e| {
         CheckpointError::invalid(&file.path, format!("not a readable zip archive: {e}"))
     })?;
-    let mut entry = archive
-        .by_name(member)
-        .map_err(|e| CheckpointError::invalid(&file.path, format!("zip member `{member}`: {e}")))?;
-    // A hostile archive can declare any size: cap what we are willing to inflate.
-    const MAX_MEMBER: u64 = 16 << 30;
-    if entry.size() > MAX_MEMBER {
-        return Err(CheckpointError::invalid(
-            &file.path,
-            format!(
-                "zip member `{member}` declares {} bytes, more than the 16 GiB limit",
-                entry.size()
-            ),
-        ));
-    }
-    let mut out = Vec::with_capacity(entry.size() as usize);
-    entry
-        .read_to_end(&mut out)
-        .map_err(|e| CheckpointError::invalid(&file.path, format!("zip member `{member}`: {e}")))?;
+    let entry = archive.by_name(member).map_err(|e| {
+        CheckpointError::invalid(&file.path, format!("zip member `{}`: {e}", shown(member)))
+    })?;
+    let first = entry.size().min(limit).min(64 << 20) as usize;
+    let mut out = Vec::with_capacity(first);
+    entry.take(limit).read_to_end(&mut out).map_err(|e| {
+        CheckpointError::invalid(&file.path, format!("zip member `{}`: {e}", shown(member)))
+    })?;
     Ok(out)
 }
 

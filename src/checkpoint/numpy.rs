@@ -182,7 +182,7 @@ impl LitParser<'_> {
                     b"None" => Ok(Lit::None),
                     other => Err(format!(
                         "header: unexpected word `{}`",
-                        String::from_utf8_lossy(other)
+                        super::shown(&String::from_utf8_lossy(other))
                     )),
                 }
             }
@@ -200,7 +200,8 @@ fn dtype_of(descr: &str) -> Result<(Dtype, bool), String> {
     };
     if code.starts_with('O') {
         return Err(format!(
-            "array of Python objects (dtype `{descr}`): its elements are pickles, which posaudit never reads"
+            "array of Python objects (dtype `{}`): its elements are pickles, which posaudit never reads",
+            super::shown(descr)
         ));
     }
     let dtype = match code {
@@ -217,7 +218,7 @@ fn dtype_of(descr: &str) -> Result<(Dtype, bool), String> {
         "u1" => Dtype::U8,
         "b1" => Dtype::Bool,
         _ => Dtype::Other {
-            name: descr.to_string(),
+            name: super::shown(descr),
         },
     };
     Ok((dtype, order))
@@ -363,7 +364,12 @@ fn open_npy(file: SourceFile) -> Result<Opened, CheckpointError> {
 
 /// Reads the header of one `.npz` member: its preamble first, then exactly the header.
 fn member_header(file: &SourceFile, m: &Member) -> Result<NpyHeader, CheckpointError> {
-    let bad = |e: String| CheckpointError::invalid(&file.path, format!("array `{}`: {e}", m.name));
+    let bad = |e: String| {
+        CheckpointError::invalid(
+            &file.path,
+            format!("array `{}`: {e}", super::shown(&m.name)),
+        )
+    };
     let pre = archive::member_prefix(file, m, 12)?;
     // The first parse fails on the header text, but tells us how long the header is.
     let len = match pre.get(6) {
@@ -392,7 +398,7 @@ fn open_npz(file: SourceFile) -> Result<Opened, CheckpointError> {
             warnings.push(format!(
                 "{}: member `{}` is not a .npy array; ignored",
                 file.path.display(),
-                m.name
+                super::shown(&m.name)
             ));
             continue;
         };
@@ -405,7 +411,11 @@ fn open_npz(file: SourceFile) -> Result<Opened, CheckpointError> {
             (_, false, Some(_)) => {
                 return Err(CheckpointError::invalid(
                     &file.path,
-                    format!("array `{name}`: {}", too_short(nbytes, &h, m.size)),
+                    format!(
+                        "array `{}`: {}",
+                        super::shown(name),
+                        too_short(nbytes, &h, m.size)
+                    ),
                 ));
             }
             (Storage::Mapped { offset, .. }, _, _) => Storage::Mapped {
@@ -414,9 +424,20 @@ fn open_npz(file: SourceFile) -> Result<Opened, CheckpointError> {
                     .unwrap_or(0)
                     .min(m.size as usize - h.data_offset.min(m.size as usize)),
             },
-            (Storage::ZipMember { member, .. }, _, _) => Storage::ZipMember {
+            (
+                Storage::ZipMember {
+                    member,
+                    size,
+                    compressed,
+                    ..
+                },
+                _,
+                _,
+            ) => Storage::ZipMember {
                 member: member.clone(),
                 skip: h.data_offset,
+                size: *size,
+                compressed: *compressed,
             },
         };
         tensors.push(tensor(name.to_string(), &h, 0, storage));

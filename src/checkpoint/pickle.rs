@@ -30,10 +30,16 @@ use std::rc::Rc;
 pub const MAX_PICKLE_BYTES: usize = 256 << 20;
 /// Most opcodes executed.
 pub const MAX_OPS: usize = 50_000_000;
-/// Most memo entries.
-pub const MAX_MEMO: usize = 10_000_000;
+/// Most memo entries (a state dict's pickle memoizes a few objects per tensor). A memo
+/// entry is one 24-byte value, so the memo stays under about 100 MB.
+pub const MAX_MEMO: usize = 4_000_000;
+/// Most values put into containers (list, tuple and dict items) over the whole pickle:
+/// 10 million 24-byte values, about 240 MB at worst.
+pub const MAX_ITEMS: usize = 10_000_000;
 /// Deepest stack, and deepest container nesting when flattening.
 pub const MAX_DEPTH: usize = 1_000;
+/// Most dimensions of one tensor.
+pub const MAX_DIMS: usize = 64;
 /// Longest string or bytes object.
 pub const MAX_STRING: usize = 64 << 20;
 
@@ -52,6 +58,17 @@ pub struct TensorRef {
     pub size: Vec<u64>,
     /// Element strides.
     pub stride: Vec<u64>,
+}
+
+/// A storage as a persistent id names it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StorageRef {
+    /// Storage class name.
+    pub storage_type: Rc<str>,
+    /// Key of the archive member.
+    pub key: Rc<str>,
+    /// Declared element count.
+    pub numel: u64,
 }
 
 /// A value on the pickle machine's stack.
@@ -79,15 +96,8 @@ pub enum Value {
     Dict(Rc<RefCell<Vec<(Value, Value)>>>),
     /// An allowed global, by its dotted name.
     Global(Rc<str>),
-    /// A storage named by a persistent id.
-    Storage {
-        /// Storage class name.
-        storage_type: Rc<str>,
-        /// Key of the archive member.
-        key: Rc<str>,
-        /// Declared element count.
-        numel: u64,
-    },
+    /// A storage named by a persistent id (boxed so that a value stays 24 bytes).
+    Storage(Rc<StorageRef>),
     /// A rebuilt tensor.
     Tensor(Rc<TensorRef>),
     /// A harmless object we do not model (a `torch.device`, a dtype).
@@ -146,7 +156,7 @@ impl Value {
             Value::List(_) => "list",
             Value::Dict(_) => "dict",
             Value::Global(_) => "global",
-            Value::Storage { .. } => "storage",
+            Value::Storage(_) => "storage",
             Value::Tensor(_) => "tensor",
             Value::Opaque(_) => "object",
             Value::Mark => "mark",
@@ -208,7 +218,9 @@ pub fn load(bytes: &[u8]) -> Result<Value, String> {
         pos: 0,
         stack: Vec::new(),
         marks: Vec::new(),
-        memo: HashMap::new(),
+        memo: Vec::new(),
+        sparse_memo: HashMap::new(),
+        items: 0,
     }
     .run()
 }
@@ -218,7 +230,13 @@ struct Machine<'a> {
     pos: usize,
     stack: Vec<Value>,
     marks: Vec<usize>,
-    memo: HashMap<u64, Value>,
+    /// Memo entries 0, 1, 2, ... as `torch.save` writes them (BINPUT with the next index,
+    /// or MEMOIZE).
+    memo: Vec<Value>,
+    /// Memo entries written out of order (a crafted or unusual pickle).
+    sparse_memo: HashMap<u64, Value>,
+    /// Values put into containers so far ([`MAX_ITEMS`]).
+    items: usize,
 }
 
 impl<'a> Machine<'a> {
@@ -334,28 +352,63 @@ impl<'a> Machine<'a> {
         Ok(self.stack.split_off(m))
     }
 
+    fn memo_len(&self) -> usize {
+        self.memo.len() + self.sparse_memo.len()
+    }
+
     fn memo_put(&mut self, idx: u64) -> Result<(), String> {
         let v = self.top()?.clone();
-        if self.memo.len() >= MAX_MEMO && !self.memo.contains_key(&idx) {
-            return Err(format!("pickle memo exceeds {MAX_MEMO} entries"));
+        let dense = self.memo.len() as u64;
+        if idx < dense {
+            self.memo[idx as usize] = v;
+            return Ok(());
         }
-        self.memo.insert(idx, v);
+        if self.memo_len() >= MAX_MEMO && !self.sparse_memo.contains_key(&idx) {
+            return Err(format!(
+                "pickle memo exceeds {MAX_MEMO} entries (the limit) at byte {}",
+                self.pos
+            ));
+        }
+        if idx == dense {
+            self.sparse_memo.remove(&idx);
+            self.memo.push(v);
+            // Entries written ahead of order that now continue the dense run.
+            while let Some(next) = self.sparse_memo.remove(&(self.memo.len() as u64)) {
+                self.memo.push(next);
+            }
+        } else {
+            self.sparse_memo.insert(idx, v);
+        }
         Ok(())
     }
 
     fn memo_get(&mut self, idx: u64) -> Result<(), String> {
-        let v = self
-            .memo
-            .get(&idx)
+        let v = usize::try_from(idx)
+            .ok()
+            .and_then(|i| self.memo.get(i))
+            .or_else(|| self.sparse_memo.get(&idx))
             .cloned()
             .ok_or_else(|| format!("memo entry {idx} read before it was written"))?;
         self.push(v)
     }
 
+    /// Counts `n` values put into containers against [`MAX_ITEMS`].
+    fn count_items(&mut self, n: usize) -> Result<(), String> {
+        self.items = self.items.saturating_add(n);
+        if self.items > MAX_ITEMS {
+            return Err(format!(
+                "pickle builds more than {MAX_ITEMS} container items (the limit) at byte {}",
+                self.pos
+            ));
+        }
+        Ok(())
+    }
+
     fn global(&mut self, module: &str, name: &str) -> Result<(), String> {
         if !allowed_global(module, name) {
             return Err(format!(
-                "refuses global `{module}.{name}` (posaudit never executes pickled code)"
+                "refuses global `{}` (posaudit never executes pickled code)",
+                super::shown(&format!("{module}.{name}"))
             ));
         }
         self.push(Value::Global(Rc::from(format!("{module}.{name}"))))
@@ -398,18 +451,22 @@ impl<'a> Machine<'a> {
                 b')' => self.push(Value::Tuple(Rc::default()))?,
                 b't' => {
                     let items = self.pop_mark()?;
+                    self.count_items(items.len())?;
                     self.push(Value::Tuple(Rc::new(items)))?;
                 }
                 0x85 => {
+                    self.count_items(1)?;
                     let a = self.pop()?;
                     self.push(Value::Tuple(Rc::new(vec![a])))?;
                 }
                 0x86 => {
+                    self.count_items(2)?;
                     let b = self.pop()?;
                     let a = self.pop()?;
                     self.push(Value::Tuple(Rc::new(vec![a, b])))?;
                 }
                 0x87 => {
+                    self.count_items(3)?;
                     let c = self.pop()?;
                     let b = self.pop()?;
                     let a = self.pop()?;
@@ -417,10 +474,12 @@ impl<'a> Machine<'a> {
                 }
                 b'l' => {
                     let items = self.pop_mark()?;
+                    self.count_items(items.len())?;
                     self.push(Value::List(Rc::new(RefCell::new(items))))?;
                 }
                 b'd' => {
                     let items = self.pop_mark()?;
+                    self.count_items(items.len())?;
                     let dict = pairs(items, at)?;
                     self.push(Value::Dict(Rc::new(RefCell::new(dict))))?;
                 }
@@ -434,7 +493,7 @@ impl<'a> Machine<'a> {
                     self.memo_put(i)?;
                 }
                 0x94 => {
-                    let i = self.memo.len() as u64;
+                    let i = self.memo_len() as u64;
                     self.memo_put(i)?;
                 }
                 // BINGET, LONG_BINGET
@@ -448,22 +507,26 @@ impl<'a> Machine<'a> {
                 }
                 // SETITEM, SETITEMS
                 b's' => {
+                    self.count_items(2)?;
                     let v = self.pop()?;
                     let k = self.pop()?;
                     dict_extend(self.top()?, vec![(k, v)], at)?;
                 }
                 b'u' => {
                     let items = self.pop_mark()?;
+                    self.count_items(items.len())?;
                     let items = pairs(items, at)?;
                     dict_extend(self.top()?, items, at)?;
                 }
                 // APPEND, APPENDS
                 b'a' => {
+                    self.count_items(1)?;
                     let v = self.pop()?;
                     list_extend(self.top()?, vec![v], at)?;
                 }
                 b'e' => {
                     let items = self.pop_mark()?;
+                    self.count_items(items.len())?;
                     list_extend(self.top()?, items, at)?;
                 }
                 // GLOBAL (two text lines), STACK_GLOBAL (two strings on the stack)
@@ -565,6 +628,14 @@ impl<'a> Machine<'a> {
                 b'R' | 0x81 => {
                     let args = self.pop()?;
                     let func = self.pop()?;
+                    // OrderedDict(list) copies the list's pairs: count them first.
+                    if let (Value::Global(g), Value::Tuple(a)) = (&func, &args)
+                        && &**g == "collections.OrderedDict"
+                        && let Some(Value::List(l)) = a.first()
+                    {
+                        let n = l.borrow().len();
+                        self.count_items(n.saturating_mul(2))?;
+                    }
                     let v = reduce(&func, &args, at)?;
                     self.push(v)?;
                 }
@@ -676,11 +747,11 @@ fn persistent_storage(pid: &Value, at: usize) -> Result<Value, String> {
                 .strip_prefix("torch.")
                 .filter(|n| n.ends_with("Storage"))
                 .ok_or_else(bad)?;
-            Ok(Value::Storage {
+            Ok(Value::Storage(Rc::new(StorageRef {
                 storage_type: Rc::from(storage_type),
                 key,
                 numel: as_u64(numel).ok_or_else(bad)?,
-            })
+            })))
         }
         _ => Err(bad()),
     }
@@ -705,19 +776,25 @@ fn reduce(func: &Value, args: &Value, at: usize) -> Result<Value, String> {
             let [storage, offset, size, stride, ..] = args_vec.as_slice() else {
                 return Err(bad("expects (storage, offset, size, stride, ...)"));
             };
-            let Value::Storage {
+            let Value::Storage(storage) = storage else {
+                return Err(bad("first argument is not a storage"));
+            };
+            let StorageRef {
                 storage_type,
                 key,
                 numel,
-            } = storage
-            else {
-                return Err(bad("first argument is not a storage"));
-            };
+            } = &**storage;
             let size = u64_tuple(size).ok_or_else(|| bad("size is not a tuple of integers"))?;
             let stride =
                 u64_tuple(stride).ok_or_else(|| bad("stride is not a tuple of integers"))?;
             if size.len() != stride.len() {
                 return Err(bad("size and stride differ in length"));
+            }
+            if size.len() > MAX_DIMS {
+                return Err(bad(&format!(
+                    "{} dimensions, more than the limit of {MAX_DIMS}",
+                    size.len()
+                )));
             }
             Ok(Value::Tensor(Rc::new(TensorRef {
                 key: key.to_string(),

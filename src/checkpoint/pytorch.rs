@@ -18,7 +18,7 @@ use std::path::Path;
 
 use super::archive::{self, Member};
 use super::pickle::{self, TensorRef, Value};
-use super::{CheckpointError, Dtype, Format, Opened, SourceFile, TensorInfo};
+use super::{CheckpointError, Dtype, Format, Opened, SourceFile, TensorInfo, limits, shown};
 
 /// The pickle that starts a pre-1.6 `torch.save` file: protocol 2, then the magic number
 /// 0x1950a86a20f9469cfc6c as a 10-byte LONG1 (torch/serialization.py, `MAGIC_NUMBER`).
@@ -68,27 +68,41 @@ fn is_c_contiguous(shape: &[usize], strides: &[usize]) -> bool {
         .all(|(&d, (&s, &cs))| d <= 1 || s == cs)
 }
 
+/// What flattening has spent so far, against [`MAX_VISITS`], [`MAX_TENSORS`] and
+/// [`limits::MAX_NAMES_TOTAL`].
+#[derive(Default)]
+struct Walk {
+    visits: usize,
+    name_bytes: usize,
+}
+
 /// Flattens nested containers to `(dotted name, tensor)` pairs.
+///
+/// Cost: one step per visited value and the bytes of the names built, both capped, so a
+/// pickle that refers to one list many times, or repeats a 1 MB key through every level,
+/// stops at a limit instead of building gigabytes of names. A name longer than
+/// [`limits::MAX_NAME_BYTES`] and containers nested deeper than [`MAX_NESTING`] are
+/// errors: silently dropping them would hide tensors.
 fn flatten(
     v: &Value,
     prefix: &str,
     depth: usize,
-    visits: &mut usize,
+    walk: &mut Walk,
     out: &mut Vec<(String, TensorRef)>,
 ) -> Result<(), String> {
-    *visits += 1;
-    if *visits > MAX_VISITS {
+    walk.visits += 1;
+    if walk.visits > MAX_VISITS {
         return Err(format!(
             "the pickled object has more than {MAX_VISITS} entries (or refers to itself)"
         ));
     }
-    let join = |k: &str| {
-        if prefix.is_empty() {
-            k.to_string()
-        } else {
-            format!("{prefix}.{k}")
-        }
-    };
+    let is_container = matches!(v, Value::Dict(_) | Value::List(_) | Value::Tuple(_));
+    if is_container && depth >= MAX_NESTING {
+        return Err(format!(
+            "the pickled object nests containers more than {MAX_NESTING} deep (the limit) under `{}`",
+            shown(prefix)
+        ));
+    }
     match v {
         Value::Tensor(t) => {
             if out.len() >= MAX_TENSORS {
@@ -98,29 +112,61 @@ fn flatten(
             }
             out.push((prefix.to_string(), (**t).clone()))
         }
-        Value::Dict(d) if depth < MAX_NESTING => {
+        Value::Dict(d) => {
             for (k, v) in d.borrow().iter() {
                 let key = match k {
                     Value::Str(s) => s.to_string(),
                     Value::Int(i) => i.to_string(),
                     _ => continue,
                 };
-                flatten(v, &join(&key), depth + 1, visits, out)?;
+                let name = join(prefix, &key, walk)?;
+                flatten(v, &name, depth + 1, walk, out)?;
             }
         }
-        Value::List(l) if depth < MAX_NESTING => {
+        Value::List(l) => {
             for (i, v) in l.borrow().iter().enumerate() {
-                flatten(v, &join(&i.to_string()), depth + 1, visits, out)?;
+                let name = join(prefix, &i.to_string(), walk)?;
+                flatten(v, &name, depth + 1, walk, out)?;
             }
         }
-        Value::Tuple(t) if depth < MAX_NESTING => {
+        Value::Tuple(t) => {
             for (i, v) in t.iter().enumerate() {
-                flatten(v, &join(&i.to_string()), depth + 1, visits, out)?;
+                let name = join(prefix, &i.to_string(), walk)?;
+                flatten(v, &name, depth + 1, walk, out)?;
             }
         }
         _ => {}
     }
     Ok(())
+}
+
+/// `prefix.k`, refused beyond [`limits::MAX_NAME_BYTES`] and counted against
+/// [`limits::MAX_NAMES_TOTAL`] before it is built.
+fn join(prefix: &str, k: &str, walk: &mut Walk) -> Result<String, String> {
+    let len = if prefix.is_empty() {
+        k.len()
+    } else {
+        prefix.len() + 1 + k.len()
+    };
+    if len > limits::MAX_NAME_BYTES {
+        return Err(format!(
+            "a tensor name under `{}` would be {len} bytes, more than the {}-byte limit for a name",
+            shown(prefix),
+            limits::MAX_NAME_BYTES
+        ));
+    }
+    walk.name_bytes += len;
+    if walk.name_bytes > limits::MAX_NAMES_TOTAL {
+        return Err(format!(
+            "the pickled object's flattened names exceed {} MiB in all (the limit)",
+            limits::MAX_NAMES_TOTAL >> 20
+        ));
+    }
+    Ok(if prefix.is_empty() {
+        k.to_string()
+    } else {
+        format!("{prefix}.{k}")
+    })
 }
 
 /// The archive's folder prefix (`archive/`), from the member holding `data.pkl`.
@@ -173,7 +219,7 @@ fn index_file(file: &SourceFile, file_index: usize) -> Result<Vec<TensorInfo>, C
                         path,
                         format!(
                             "byteorder member says `{}`, expected `little` or `big`",
-                            String::from_utf8_lossy(other)
+                            shown(&String::from_utf8_lossy(other))
                         ),
                     ));
                 }
@@ -197,16 +243,19 @@ fn index_file(file: &SourceFile, file_index: usize) -> Result<Vec<TensorInfo>, C
     let root = pickle::load(&pkl_bytes).map_err(|e| CheckpointError::invalid(path, e))?;
 
     let mut refs = Vec::new();
-    let mut visits = 0;
-    flatten(&root, "", 0, &mut visits, &mut refs).map_err(|e| CheckpointError::invalid(path, e))?;
+    flatten(&root, "", 0, &mut Walk::default(), &mut refs)
+        .map_err(|e| CheckpointError::invalid(path, e))?;
 
     let mut out = Vec::with_capacity(refs.len());
     for (name, r) in refs {
-        let bad = |what: String| CheckpointError::invalid(path, format!("tensor `{name}`: {what}"));
+        let bad = |what: String| {
+            CheckpointError::invalid(path, format!("tensor `{}`: {what}", shown(&name)))
+        };
         let member_name = format!("{prefix}data/{}", r.key);
         let member = by_name.get(member_name.as_str()).ok_or_else(|| {
             bad(format!(
-                "its storage `{member_name}` is missing from the archive"
+                "its storage `{}` is missing from the archive",
+                shown(&member_name)
             ))
         })?;
         let dtype = dtype_of(&r.storage_type);
@@ -327,7 +376,7 @@ mod tests {
         let l = |v: Value| Value::List(std::rc::Rc::new(std::cell::RefCell::new(vec![v; 1000])));
         let root = l(l(l(t)));
         let mut out = Vec::new();
-        let e = flatten(&root, "", 0, &mut 0, &mut out).unwrap_err();
+        let e = flatten(&root, "", 0, &mut Walk::default(), &mut out).unwrap_err();
         assert!(e.contains("more than"), "{e}");
         assert!(out.len() <= MAX_TENSORS);
     }

@@ -4,13 +4,15 @@
 //! offsets, exact coverage of the data section) are the `safetensors` crate's; this module
 //! turns its errors into messages that say what is wrong with which file.
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeSet, HashMap};
 use std::path::Path;
 
 use safetensors::SafeTensors;
 use safetensors::tensor::SafeTensorError;
 
-use super::{CheckpointError, Dtype, Format, Opened, SourceFile, Storage, TensorInfo};
+use super::{
+    CheckpointError, Dtype, Format, Opened, SourceFile, Storage, TensorInfo, limits, shown,
+};
 
 /// Largest header the `safetensors` crate accepts (its own limit).
 const MAX_HEADER: u64 = 100_000_000;
@@ -55,12 +57,19 @@ fn explain(path: &Path, bytes: &[u8], err: SafeTensorError) -> CheckpointError {
             "header length {} runs past the end of the file ({len} bytes): truncated or not safetensors",
             declared.unwrap_or(0)
         ),
-        SafeTensorError::InvalidHeader(e) => format!("header is not UTF-8 text: {e}"),
+        SafeTensorError::InvalidHeader(e) => format!(
+            "header is not UTF-8 text: {}",
+            limits::shown_max(&e.to_string(), 240)
+        ),
         SafeTensorError::InvalidHeaderDeserialization(e) => {
-            format!("header is not valid safetensors JSON: {e}")
+            format!(
+                "header is not valid safetensors JSON: {}",
+                limits::shown_max(&e.to_string(), 240)
+            )
         }
         SafeTensorError::InvalidOffset(name) => format!(
-            "tensor `{name}`: data offsets overlap another tensor or leave a gap"
+            "tensor `{}`: data offsets overlap another tensor or leave a gap",
+            shown(&name)
         ),
         SafeTensorError::TensorInvalidInfo => {
             "a tensor's byte range does not match its shape and dtype".to_string()
@@ -74,7 +83,7 @@ fn explain(path: &Path, bytes: &[u8], err: SafeTensorError) -> CheckpointError {
         SafeTensorError::MisalignedSlice => {
             "a sub-byte tensor does not end on a byte boundary".to_string()
         }
-        other => format!("invalid safetensors file: {other}"),
+        other => format!("invalid safetensors file: {}", shown(&other.to_string())),
     };
     CheckpointError::invalid(path, problem)
 }
@@ -118,29 +127,15 @@ pub fn open_files(files: Vec<SourceFile>) -> Result<Opened, CheckpointError> {
     for (i, file) in files.iter().enumerate() {
         tensors.extend(index_file(file, i)?);
     }
-    let mut warnings = Vec::new();
-    check_duplicate_names(&files, &tensors, &mut warnings);
+    // A name held twice (by two shards without an index) is refused when the checkpoint
+    // is indexed by name (`Checkpoint::open`), for every format alike.
     Ok(Opened {
         format: Format::Safetensors,
         files,
         tensors,
         hints: None,
-        warnings,
+        warnings: Vec::new(),
     })
-}
-
-fn check_duplicate_names(files: &[SourceFile], tensors: &[TensorInfo], warnings: &mut Vec<String>) {
-    let mut seen: BTreeMap<&str, usize> = BTreeMap::new();
-    for t in tensors {
-        if let Some(first) = seen.insert(&t.name, t.file) {
-            warnings.push(format!(
-                "tensor `{}` appears in both {} and {}; both are listed",
-                t.name,
-                files[first].display_name(),
-                files[t.file].display_name()
-            ));
-        }
-    }
 }
 
 /// Opens a sharded checkpoint from its `*.safetensors.index.json`.
@@ -155,60 +150,111 @@ pub(crate) fn open_sharded_with(
     index_path: &Path,
     open_files: fn(Vec<SourceFile>) -> Result<Opened, CheckpointError>,
 ) -> Result<Opened, CheckpointError> {
-    let text =
-        std::fs::read_to_string(index_path).map_err(|e| CheckpointError::io(index_path, e))?;
-    let json: serde_json::Value = serde_json::from_str(&text).map_err(|e| {
+    let text = super::read_small_file(index_path, limits::MAX_INDEX_BYTES, "shard index")?;
+    let json: serde_json::Value = serde_json::from_slice(&text).map_err(|e| {
         CheckpointError::invalid(index_path, format!("index is not valid JSON: {e}"))
     })?;
     let map = json
         .get("weight_map")
         .and_then(|m| m.as_object())
         .ok_or_else(|| CheckpointError::invalid(index_path, "index has no `weight_map` object"))?;
+    if map.is_empty() {
+        return Err(CheckpointError::invalid(
+            index_path,
+            "index's `weight_map` is empty: it names no tensor and no shard",
+        ));
+    }
     let dir = index_path.parent().unwrap_or(Path::new("."));
-    let mut shard_names: Vec<String> = Vec::new();
+    let mut shard_names: BTreeSet<String> = BTreeSet::new();
     for (tensor, shard) in map {
         let shard = shard.as_str().ok_or_else(|| {
             CheckpointError::invalid(
                 index_path,
-                format!("weight_map entry `{tensor}` is not a file name"),
+                format!("weight_map entry `{}` is not a file name", shown(tensor)),
             )
         })?;
         // Shards must sit beside the index: refuse paths that climb out of the folder.
         if shard.contains('/') || shard.contains('\\') || shard == ".." {
             return Err(CheckpointError::invalid(
                 index_path,
-                format!("weight_map names shard `{shard}` outside the checkpoint folder"),
+                format!(
+                    "weight_map names shard `{}` outside the checkpoint folder",
+                    shown(shard)
+                ),
             ));
         }
-        if !shard_names.iter().any(|s| s == shard) {
-            shard_names.push(shard.to_string());
-        }
+        shard_names.insert(shard.to_string());
     }
-    shard_names.sort();
     let mut files = Vec::with_capacity(shard_names.len());
     for shard in &shard_names {
         let p = dir.join(shard);
-        if !p.is_file() {
+        if std::fs::metadata(&p).is_err() {
             return Err(CheckpointError::invalid(
                 index_path,
-                format!("shard `{shard}` named in weight_map is missing"),
+                format!("shard `{}` named in weight_map is missing", shown(shard)),
             ));
         }
         files.push(SourceFile::open(&p)?);
     }
     let mut opened = open_files(files)?;
+    // Check the map against what the shards hold: one pass over each (no search per entry).
+    let held: HashMap<&str, usize> = opened
+        .tensors
+        .iter()
+        .map(|t| (t.name.as_str(), t.file))
+        .collect();
+    let mut warnings = Vec::new();
+    let (mut missing, mut elsewhere) = (Vec::new(), Vec::new());
     for (tensor, shard) in map {
         let shard = shard.as_str().unwrap_or_default();
-        let found = opened
-            .tensors
-            .iter()
-            .any(|t| t.name == *tensor && opened.files[t.file].display_name() == shard);
-        if !found {
-            opened.warnings.push(format!(
-                "{}: weight_map says `{tensor}` is in {shard}, but that shard does not hold it",
-                index_path.display()
-            ));
+        match held.get(tensor.as_str()) {
+            None => missing.push(format!("`{}` ({})", shown(tensor), shown(shard))),
+            Some(&f) if opened.files[f].display_name() != shard => elsewhere.push(format!(
+                "`{}` (index: {}, found in {})",
+                shown(tensor),
+                shown(shard),
+                opened.files[f].display_name()
+            )),
+            Some(_) => {}
         }
     }
+    let unlisted: Vec<String> = opened
+        .tensors
+        .iter()
+        .filter(|t| !map.contains_key(&t.name))
+        .map(|t| format!("`{}`", shown(&t.name)))
+        .collect();
+    let summary = |items: &[String]| {
+        let mut s = items.iter().take(3).cloned().collect::<Vec<_>>().join(", ");
+        if items.len() > 3 {
+            s.push_str(&format!(" and {} more", items.len() - 3));
+        }
+        s
+    };
+    if !missing.is_empty() {
+        warnings.push(format!(
+            "{}: weight_map names {} tensor(s) that no shard holds: {}",
+            index_path.display(),
+            missing.len(),
+            summary(&missing)
+        ));
+    }
+    if !elsewhere.is_empty() {
+        warnings.push(format!(
+            "{}: {} tensor(s) are in another shard than weight_map says: {}",
+            index_path.display(),
+            elsewhere.len(),
+            summary(&elsewhere)
+        ));
+    }
+    if !unlisted.is_empty() {
+        warnings.push(format!(
+            "{}: the shards hold {} tensor(s) that weight_map does not name (analysed all the same): {}",
+            index_path.display(),
+            unlisted.len(),
+            summary(&unlisted)
+        ));
+    }
+    opened.warnings.extend(warnings);
     Ok(opened)
 }
