@@ -12,6 +12,7 @@
 
 mod archive;
 pub mod dtype;
+pub mod ggml_quants;
 pub mod gguf;
 pub mod numpy;
 pub mod pickle;
@@ -425,7 +426,7 @@ impl Checkpoint {
 
     fn check_readable(&self, t: &TensorInfo, bytes: &[u8]) -> Result<(), CheckpointError> {
         let file = &self.file_of(t)?.path;
-        let size = t.dtype.size().ok_or_else(|| {
+        t.dtype.storage_len(1).ok_or_else(|| {
             CheckpointError::invalid(
                 file,
                 format!(
@@ -450,7 +451,7 @@ impl Checkpoint {
                     acc.checked_add((d - 1).checked_mul(*s)?)
                 }),
         };
-        let needed = last.and_then(|l| l.checked_add(1)?.checked_mul(size));
+        let needed = last.and_then(|l| t.dtype.storage_len(l.checked_add(1)?));
         match needed {
             Some(needed) if needed <= bytes.len() => Ok(()),
             _ => Err(CheckpointError::invalid(
