@@ -6,6 +6,8 @@
 
 use std::fmt;
 
+pub use super::ggml_quants::QuantType;
+
 /// Reads one number of type `$t` (`$n` bytes) from the slice `$raw` of exactly that length.
 macro_rules! read_number {
     ($t:ty, $n:expr, $raw:expr, $big_endian:expr) => {{
@@ -48,6 +50,8 @@ pub enum Dtype {
     U8,
     /// One byte per boolean.
     Bool,
+    /// A GGML block-quantized type that posaudit dequantizes (GGUF files).
+    Quantized(QuantType),
     /// Any type posaudit cannot analyse (8-bit floats, quantized blocks, complex numbers):
     /// the format's own name for it, and its size in bytes per element when the format
     /// defines one.
@@ -65,13 +69,26 @@ impl Dtype {
             Dtype::F32 | Dtype::I32 | Dtype::U32 => 4,
             Dtype::F16 | Dtype::BF16 | Dtype::I16 | Dtype::U16 => 2,
             Dtype::I8 | Dtype::U8 | Dtype::Bool => 1,
-            Dtype::Other { .. } => return None,
+            Dtype::Other { .. } | Dtype::Quantized(_) => return None,
         })
     }
 
-    /// True for the floating-point types whose values the analyses read.
+    /// Bytes of storage that elements `0..n` occupy: `n` times the element size, or the
+    /// whole blocks of a quantized type. `None` for types posaudit cannot read.
+    pub fn storage_len(&self, n: usize) -> Option<usize> {
+        match self {
+            Dtype::Quantized(q) => q.storage_len(n),
+            _ => self.size()?.checked_mul(n),
+        }
+    }
+
+    /// True for the floating-point types whose values the analyses read (quantized
+    /// types read as the values they dequantize to).
     pub fn is_float(&self) -> bool {
-        matches!(self, Dtype::F64 | Dtype::F32 | Dtype::F16 | Dtype::BF16)
+        matches!(
+            self,
+            Dtype::F64 | Dtype::F32 | Dtype::F16 | Dtype::BF16 | Dtype::Quantized(_)
+        )
     }
 
     /// True for the integer types (index buffers such as position ids).
@@ -129,6 +146,9 @@ impl Dtype {
     /// into `out`, for F64, F32, F16 and BF16; returns false (and leaves `out` for the
     /// element-wise path) for other types or when the run is not inside `bytes`.
     pub fn decode_le_run(&self, bytes: &[u8], start: usize, out: &mut [f64]) -> bool {
+        if let Dtype::Quantized(q) = self {
+            return q.decode_run(bytes, start, out);
+        }
         let Some(size) = self.size() else {
             return false;
         };
@@ -168,6 +188,9 @@ impl Dtype {
     /// Decodes element `i` of `bytes` (little- or big-endian) as f64. Returns `None` when
     /// the element lies outside `bytes` or the type is not numeric.
     pub fn decode(&self, bytes: &[u8], i: usize, big_endian: bool) -> Option<f64> {
+        if let Dtype::Quantized(q) = self {
+            return q.decode(bytes, i);
+        }
         let raw = self.element(bytes, i)?;
         macro_rules! take {
             ($t:ty, $n:expr) => {
@@ -188,7 +211,7 @@ impl Dtype {
             Dtype::U16 => take!(u16, 2) as f64,
             Dtype::U8 => raw[0] as f64,
             Dtype::Bool => f64::from(u8::from(raw[0] != 0)),
-            Dtype::Other { .. } => return None,
+            Dtype::Other { .. } | Dtype::Quantized(_) => return None,
         })
     }
 
@@ -231,6 +254,7 @@ impl fmt::Display for Dtype {
             Dtype::U16 => "U16",
             Dtype::U8 => "U8",
             Dtype::Bool => "BOOL",
+            Dtype::Quantized(q) => q.name(),
             Dtype::Other { name } => name,
         };
         f.write_str(s)

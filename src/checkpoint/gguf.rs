@@ -10,8 +10,9 @@
 //! Every count and length in the header is checked against a limit and against the bytes
 //! left in the file before anything is allocated, so an absurd count is an error message,
 //! not an allocation. Dimensions are reversed to the usual row-major order. Quantized
-//! tensors are listed with their ggml type name as [`Dtype::Other`]: posaudit does not
-//! dequantize them. Architecture metadata (`{arch}.context_length`, rope settings, ...)
+//! tensors of the common GGML block types (Q4_0, Q4_1, Q5_0, Q5_1, Q8_0, Q4_K, Q5_K, Q6_K,
+//! Q8_K) are [`Dtype::Quantized`] and read dequantized (`ggml_quants`); other block types
+//! are listed with their ggml type name as [`Dtype::Other`]. Architecture metadata (`{arch}.context_length`, rope settings, ...)
 //! becomes configuration hints.
 
 use std::collections::BTreeMap;
@@ -137,8 +138,11 @@ fn dtype_of(name: &str) -> Dtype {
         "I16" => Dtype::I16,
         "I32" => Dtype::I32,
         "I64" => Dtype::I64,
-        other => Dtype::Other {
-            name: other.to_string(),
+        other => match super::ggml_quants::QuantType::from_name(other) {
+            Some(q) => Dtype::Quantized(q),
+            None => Dtype::Other {
+                name: other.to_string(),
+            },
         },
     }
 }
@@ -425,6 +429,38 @@ fn meta_to_json(v: &MetaValue) -> Json {
     }
 }
 
+/// The rotary base ggml-based runtimes use when `{arch}.rope.freq_base` is absent.
+pub const DEFAULT_ROPE_BASE: f64 = 10000.0;
+
+/// GGUF architectures that encode positions with rotary embeddings (llama family and
+/// others); a missing rope base there means [`DEFAULT_ROPE_BASE`].
+const ROPE_ARCHS: [&str; 24] = [
+    "llama",
+    "mistral",
+    "qwen",
+    "qwen2",
+    "qwen2moe",
+    "qwen3",
+    "qwen3moe",
+    "gemma",
+    "gemma2",
+    "gemma3",
+    "phi2",
+    "phi3",
+    "internlm2",
+    "deepseek",
+    "deepseek2",
+    "starcoder2",
+    "stablelm",
+    "granite",
+    "olmo",
+    "olmo2",
+    "command-r",
+    "minicpm",
+    "gptneox",
+    "falcon",
+];
+
 /// Configuration hints from the architecture metadata (`source` "GGUF metadata").
 pub fn hints(metadata: &BTreeMap<String, MetaValue>) -> ConfigHints {
     let mut h = ConfigHints {
@@ -455,7 +491,15 @@ pub fn hints(metadata: &BTreeMap<String, MetaValue>) -> ConfigHints {
         .and_then(MetaValue::as_f64)
         .map(|value| Hint {
             value,
-            key: theta_key,
+            key: theta_key.clone(),
+        })
+        .or_else(|| {
+            // ggml's runtime falls back to base 10000 when the key is absent (its default
+            // `rope_freq_base`); say so rather than leave the base unknown.
+            ROPE_ARCHS.contains(&arch).then(|| Hint {
+                value: DEFAULT_ROPE_BASE,
+                key: format!("{theta_key} absent: assumed default"),
+            })
         });
     let mut scaling = serde_json::Map::new();
     for (k, out) in [
@@ -538,6 +582,17 @@ mod tests {
         m.insert("llama.context_length".into(), MetaValue::Uint(4096));
         m.insert("llama.rope.freq_base".into(), MetaValue::Float(500000.0));
         m.insert("llama.rope.scaling.factor".into(), MetaValue::Float(8.0));
+        let mut without_base = m.clone();
+        without_base.remove("llama.rope.freq_base");
+        let assumed = hints(&without_base).rope_theta.unwrap();
+        assert_eq!(assumed.value, 10000.0);
+        assert_eq!(assumed.key, "llama.rope.freq_base absent: assumed default");
+        let mut gpt2 = BTreeMap::new();
+        gpt2.insert("general.architecture".into(), MetaValue::Str("gpt2".into()));
+        assert!(
+            hints(&gpt2).rope_theta.is_none(),
+            "learned positions: no base"
+        );
         let h = hints(&m);
         assert_eq!(h.model_type.as_deref(), Some("llama"));
         assert_eq!(h.max_positions.unwrap().value, 4096);

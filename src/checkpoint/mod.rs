@@ -12,6 +12,7 @@
 
 mod archive;
 pub mod dtype;
+pub mod ggml_quants;
 pub mod gguf;
 pub mod limits;
 pub mod numpy;
@@ -541,10 +542,9 @@ impl Checkpoint {
             }
             Storage::ZipMember { member, skip, .. } => {
                 // Inflate only the bytes the tensor can touch, never the declared size.
-                let size = t.dtype.size().unwrap_or(1);
                 let want = t
                     .extent()
-                    .and_then(|n| n.checked_mul(size)?.checked_add(*skip))
+                    .and_then(|n| t.dtype.storage_len(n)?.checked_add(*skip))
                     .ok_or_else(|| {
                         CheckpointError::invalid(
                             &file.path,
@@ -602,7 +602,7 @@ impl Checkpoint {
 
     fn check_readable(&self, t: &TensorInfo, bytes: &[u8]) -> Result<(), CheckpointError> {
         let file = &self.file_of(t)?.path;
-        let size = t.dtype.size().ok_or_else(|| {
+        t.dtype.storage_len(1).ok_or_else(|| {
             CheckpointError::invalid(
                 file,
                 format!(
@@ -612,7 +612,11 @@ impl Checkpoint {
                 ),
             )
         })?;
-        let needed = t.extent().and_then(|l| l.checked_mul(size));
+        if t.numel() == 0 {
+            return Ok(());
+        }
+        // The furthest element any index touches (TensorInfo::extent), in stored bytes.
+        let needed = t.extent().and_then(|l| t.dtype.storage_len(l));
         match needed {
             Some(needed) if needed <= bytes.len() => Ok(()),
             _ => Err(CheckpointError::invalid(
