@@ -7,7 +7,7 @@ use ndarray::{Array2, ArrayView1};
 use crate::analyze::grid::{self, GridHints};
 use crate::analyze::position_ids;
 use crate::analyze::relative::{self, RelativeHints};
-use crate::analyze::rotary::{self, LayerAgreement, RotaryAnalysis, RotaryHints};
+use crate::analyze::rotary::{self, LayerAgreement, RotaryAnalysis, RotaryHints, Scaling};
 use crate::config::ConfigHints;
 use crate::model::audit::{ConfigRotary, TableAudit};
 use crate::model::{Finding, FindingCode};
@@ -233,7 +233,7 @@ pub fn rotary_findings(a: &RotaryAnalysis) -> (String, Vec<Finding>) {
         })
         .unwrap_or_else(|| "unknown".into());
     let mut verdict = format!("base {base}, scaling {}", a.scaling);
-    if a.scaling != "none" {
+    if a.scaling != Scaling::None {
         verdict = format!("{verdict} (factor {:.4})", a.factor);
         let detail = if let Some(r) = &a.ramp {
             format!(

@@ -149,19 +149,19 @@ pub fn analyze_inv_freq(inv_freq_values: ArrayView1<f64>, hints: &RotaryHints) -
     if groups.len() == 2 {
         let ln_factor = a_head - intercepts[1];
         if ln_factor.abs() < 5e-3 {
-            analysis.scaling = "none".into();
+            analysis.scaling = Scaling::None;
             analysis.notes.push(format!(
                 "entries {}..{} deviate from the geometric progression",
                 head_end, tail_start
             ));
         } else if ln_factor < 0.0 {
-            analysis.scaling = "unknown".into();
+            analysis.scaling = Scaling::Unknown;
             analysis.notes.push(
                 "low frequencies are larger than the progression predicts (divisor below 1)".into(),
             );
         } else {
             let factor = tidy(ln_factor.exp());
-            analysis.scaling = "wavelength-ramp".into();
+            analysis.scaling = Scaling::WavelengthRamp;
             analysis.factor = factor;
             for i in tail_start..n {
                 exact[i] = exact_unscaled[i] / factor;
@@ -177,7 +177,11 @@ pub fn analyze_inv_freq(inv_freq_values: ArrayView1<f64>, hints: &RotaryHints) -
         }
     } else if a_head.abs() >= 5e-3 {
         let factor = tidy((-a_head).exp());
-        analysis.scaling = if factor > 1.0 { "linear" } else { "unknown" }.into();
+        analysis.scaling = if factor > 1.0 {
+            Scaling::Linear
+        } else {
+            Scaling::Unknown
+        };
         analysis.factor = factor;
         if factor <= 1.0 {
             analysis
@@ -187,7 +191,7 @@ pub fn analyze_inv_freq(inv_freq_values: ArrayView1<f64>, hints: &RotaryHints) -
         exact = exact_unscaled.iter().map(|w| w / factor).collect();
     } else {
         // One geometric progression starting at 1: plain or NTK-changed base.
-        analysis.scaling = "none".into();
+        analysis.scaling = Scaling::None;
         classify_base(&mut analysis, base, d, hints);
     }
 
@@ -219,7 +223,7 @@ pub(super) fn classify_base(
         }
         if ratio > 1.0 && d > 2 {
             let alpha = tidy(ratio.powf(exponent));
-            analysis.scaling = "ntk".into();
+            analysis.scaling = Scaling::Ntk;
             analysis.factor = alpha;
             analysis.ntk_alpha = Some(alpha);
             analysis.original_base = Some(theta);
@@ -227,7 +231,7 @@ pub(super) fn classify_base(
                 "base {base:.6} is larger than the config's rope_theta {theta}: NTK-aware α = {alpha:.6}"
             ));
         } else {
-            analysis.scaling = "unknown".into();
+            analysis.scaling = Scaling::Unknown;
             analysis.notes.push(format!(
                 "base {base:.6} is smaller than the config's rope_theta {theta}"
             ));
@@ -244,7 +248,7 @@ pub(super) fn classify_base(
         let alpha = (base / c).powf(exponent);
         let r = alpha.round();
         if r >= 2.0 && ((alpha - r) / r).abs() < 1e-4 {
-            analysis.scaling = "ntk".into();
+            analysis.scaling = Scaling::Ntk;
             analysis.factor = r;
             analysis.ntk_alpha = Some(r);
             analysis.original_base = Some(c);

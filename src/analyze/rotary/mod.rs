@@ -33,6 +33,42 @@ use ndarray::ArrayView1;
 use serde::Serialize;
 use std::f64::consts::PI;
 
+/// The context-extension recipe the frequencies follow (contract strings: design.md
+/// "Rotary `scaling`").
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Scaling {
+    /// The plain formula `base^(-2i/d)`.
+    None,
+    /// Every frequency divided by one factor (position interpolation).
+    Linear,
+    /// A larger base (NTK-aware scaling).
+    Ntk,
+    /// A per-dimension ramp between two wavelength bounds (Llama 3.1, YaRN).
+    WavelengthRamp,
+    /// None of the above, or not decidable.
+    Unknown,
+}
+
+impl Scaling {
+    /// The contract string.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Scaling::None => "none",
+            Scaling::Linear => "linear",
+            Scaling::Ntk => "ntk",
+            Scaling::WavelengthRamp => "wavelength-ramp",
+            Scaling::Unknown => "unknown",
+        }
+    }
+}
+
+impl std::fmt::Display for Scaling {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
 /// Hints from the model config and the caller, all optional.
 #[derive(Debug, Clone, Default)]
 pub struct RotaryHints {
@@ -147,7 +183,7 @@ pub struct RotaryAnalysis {
     /// for `ntk` this is the enlarged base actually in use. `None` when no fit was possible.
     pub base: Option<f64>,
     /// `none`, `linear`, `ntk`, `wavelength-ramp` or `unknown`.
-    pub scaling: String,
+    pub scaling: Scaling,
     /// Context scale factor implied (1.0 for none).
     pub factor: f64,
     /// Where the numbers came from: `inv_freq`, `divisors`, or `config`.
@@ -180,7 +216,7 @@ impl RotaryAnalysis {
     fn empty(source: &str, n: usize, d: usize, problem: Option<String>) -> Self {
         RotaryAnalysis {
             base: None,
-            scaling: "unknown".into(),
+            scaling: Scaling::Unknown,
             factor: 1.0,
             source: source.into(),
             frequencies: n,

@@ -213,7 +213,7 @@ pub fn rotary_from_config(
             let f = rope_scaling
                 .and_then(|rs| json_f64(rs, "factor"))
                 .unwrap_or(1.0);
-            a.scaling = "ntk".into();
+            a.scaling = Scaling::Ntk;
             a.factor = f;
             a.original_base = Some(theta);
             a.notes.push(
@@ -221,7 +221,7 @@ pub fn rotary_from_config(
             );
         }
         "longrope" => {
-            a.scaling = "unknown".into();
+            a.scaling = Scaling::Unknown;
             a.notes
                 .push("longrope: per-dimension factors from the config (long_factor)".into());
         }

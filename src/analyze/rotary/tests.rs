@@ -38,7 +38,7 @@ fn unscaled_vectors_are_recognised_with_their_base() {
     for base in [1e4, 5e5, 1e6] {
         let v = f32_round(&inv_freq(base, 128));
         let a = analyze(&v, &RotaryHints::default());
-        assert_eq!(a.scaling, "none", "{base}: {a:?}");
+        assert_eq!(a.scaling, Scaling::None, "{base}: {a:?}");
         assert_eq!(a.base, Some(base));
         assert_eq!(a.factor, 1.0);
         assert!(a.low_precision.is_none());
@@ -51,7 +51,7 @@ fn an_uncommon_base_without_config_is_reported_as_fitted() {
     // Invented base 123456: no scaling claimed, the fit returns it.
     let v = f32_round(&inv_freq(123_456.0, 64));
     let a = analyze(&v, &RotaryHints::default());
-    assert_eq!(a.scaling, "none");
+    assert_eq!(a.scaling, Scaling::None);
     assert!((a.base.unwrap() / 123_456.0 - 1.0).abs() < 1e-5);
 }
 
@@ -68,13 +68,13 @@ fn ntk_aware_bases_are_recognised_and_alpha_recovered() {
             ..Default::default()
         };
         let a = analyze(&v, &hints);
-        assert_eq!(a.scaling, "ntk", "{a:?}");
+        assert_eq!(a.scaling, Scaling::Ntk, "{a:?}");
         assert_eq!(a.ntk_alpha, Some(alpha));
         assert_eq!(a.factor, alpha);
         assert!((a.base.unwrap() - expected).abs() < 0.5, "{:?}", a.base);
         // … and without it (the common base 1e4 is assumed and said so).
         let a = analyze(&v, &RotaryHints::default());
-        assert_eq!(a.scaling, "ntk", "{a:?}");
+        assert_eq!(a.scaling, Scaling::Ntk, "{a:?}");
         assert_eq!(a.ntk_alpha, Some(alpha));
         assert_eq!(a.original_base, Some(1e4));
     }
@@ -91,7 +91,7 @@ fn linear_interpolation_is_recognised_with_its_factor() {
                 .collect::<Vec<_>>(),
         );
         let a = analyze(&v, &RotaryHints::default());
-        assert_eq!(a.scaling, "linear", "{a:?}");
+        assert_eq!(a.scaling, Scaling::Linear, "{a:?}");
         assert_eq!(a.factor, factor);
         assert_eq!(a.base, Some(1e4));
     }
@@ -121,7 +121,7 @@ fn llama31_scaling_has_the_published_groups_and_divisors() {
 fn llama31_scaled_frequencies_are_a_wavelength_ramp_with_factor_8() {
     let v = f32_round(&llama31_frequencies());
     let a = analyze(&v, &RotaryHints::default());
-    assert_eq!(a.scaling, "wavelength-ramp", "{a:?}");
+    assert_eq!(a.scaling, Scaling::WavelengthRamp, "{a:?}");
     assert_eq!(a.factor, 8.0);
     assert_eq!(a.base, Some(5e5));
     let r = a.ramp.unwrap();
@@ -175,7 +175,7 @@ fn gguf_divisors_of_llama31_give_the_same_ramp() {
         },
     );
     assert_eq!(a.source, "divisors");
-    assert_eq!(a.scaling, "wavelength-ramp", "{a:?}");
+    assert_eq!(a.scaling, Scaling::WavelengthRamp, "{a:?}");
     assert_eq!(a.factor, 8.0);
     let r = a.ramp.unwrap();
     assert_eq!(
@@ -193,7 +193,7 @@ fn config_llama3_and_linear_entries_agree_with_the_formulas() {
         "high_freq_factor": 4.0, "original_max_position_embeddings": 8192});
     let a = rotary_from_config(5e5, 128, Some(&rs), Some(131072));
     assert_eq!(a.source, "config");
-    assert_eq!(a.scaling, "wavelength-ramp");
+    assert_eq!(a.scaling, Scaling::WavelengthRamp);
     assert_eq!(a.factor, 8.0);
     let r = a.ramp.unwrap();
     assert_eq!(r.smoothed, (29, 35));
@@ -203,7 +203,7 @@ fn config_llama3_and_linear_entries_agree_with_the_formulas() {
     );
     let rs = serde_json::json!({"type": "linear", "factor": 4.0});
     let a = rotary_from_config(1e4, 128, Some(&rs), Some(8192));
-    assert_eq!((a.scaling.as_str(), a.factor), ("linear", 4.0));
+    assert_eq!((a.scaling, a.factor), (Scaling::Linear, 4.0));
     let a = rotary_from_config(1e4, 128, None, Some(4096));
     assert_eq!(
         (a.scaling.as_str(), a.factor, a.base),
@@ -225,7 +225,7 @@ fn config_yarn_has_the_published_ramp_bounds_and_attention_factor() {
     let y = a.yarn.clone().unwrap();
     assert_eq!((y.low, y.high), (20, 46));
     assert!((y.attention_factor - 1.207944).abs() < 1e-6);
-    assert_eq!(a.scaling, "wavelength-ramp", "{a:?}");
+    assert_eq!(a.scaling, Scaling::WavelengthRamp, "{a:?}");
     assert_eq!(a.factor, 8.0);
     let r = a.ramp.unwrap();
     assert_eq!(r.shape, "linear-in-index");
@@ -252,7 +252,7 @@ fn bf16_rounded_frequencies_carry_the_published_fingerprint_and_phase_error() {
     let fingerprint = [1.0, 0.8671875, 0.75, 0.6484375, 0.5625, 0.486328125];
     assert_eq!(&v[..6], &fingerprint);
     let a = analyze(&v, &RotaryHints::default());
-    assert_eq!(a.scaling, "none", "{a:?}");
+    assert_eq!(a.scaling, Scaling::None, "{a:?}");
     assert_eq!(a.base, Some(1e4));
     let p = a.low_precision.expect("bf16 fingerprint");
     assert_eq!(p.dtype, "bf16");
@@ -302,7 +302,7 @@ fn numpy_float32_llama31_frequencies_are_read_back_as_the_published_ramp() {
     let v: Vec<f64> = serde_json::from_value(r["llama31"]["inv_freq_f32"].clone()).unwrap();
     assert_eq!(v.len(), 64);
     let a = analyze(&v, &RotaryHints::default());
-    assert_eq!(a.scaling, "wavelength-ramp", "{a:?}");
+    assert_eq!(a.scaling, Scaling::WavelengthRamp, "{a:?}");
     assert_eq!((a.factor, a.base), (8.0, Some(5e5)));
     let ramp = a.ramp.unwrap();
     assert_eq!(
@@ -348,7 +348,7 @@ fn degenerate_inputs_give_a_problem_not_a_panic() {
     ] {
         let a = analyze(&v, &RotaryHints::default());
         assert!(a.problem.is_some(), "{v:?}: {a:?}");
-        assert_eq!(a.scaling, "unknown");
+        assert_eq!(a.scaling, Scaling::Unknown);
     }
     let a = analyze_rope_factors(
         Array1::from(vec![1.0, -1.0]).view(),
@@ -375,7 +375,7 @@ fn degenerate_inputs_give_a_problem_not_a_panic() {
     v[3] *= 1.5;
     v[20] *= 1.5;
     let a = analyze(&v, &RotaryHints::default());
-    assert_eq!(a.scaling, "unknown");
+    assert_eq!(a.scaling, Scaling::Unknown);
 }
 
 #[test]

@@ -8,6 +8,7 @@ use super::plots::{
     self, ColorScale, Colormap, Heatmap, HeatmapGrid, HeatmapPanel, LineChart, Matrix, Panel,
     RefLine, Scale, Series, SmallMultiples, XRange,
 };
+use crate::analyze::rotary::Scaling;
 use crate::detect::Kind;
 use crate::model::FindingCode;
 use crate::model::audit::TableAudit;
@@ -375,7 +376,7 @@ pub fn rotary(r: &crate::analyze::rotary::RotaryAnalysis, prefix: &str, name: &s
         format!("base {base:.0}, no scaling"),
         unscaled.clone(),
     ));
-    if r.scaling != "none" {
+    if r.scaling != Scaling::None {
         if let Some(ramp) = &r.ramp {
             let scaled: Vec<(f64, f64)> = unscaled
                 .iter()
@@ -395,7 +396,7 @@ pub fn rotary(r: &crate::analyze::rotary::RotaryAnalysis, prefix: &str, name: &s
                 })
                 .collect();
             c.series.push(Series::new("as stored (rescaled)", scaled));
-        } else if r.scaling == "linear" {
+        } else if r.scaling == Scaling::Linear {
             c.series.push(Series::new(
                 "as stored (rescaled)",
                 unscaled.iter().map(|&(i, w)| (i, w * r.factor)).collect(),
