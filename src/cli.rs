@@ -4,6 +4,9 @@ use std::path::PathBuf;
 
 use clap::{Parser, Subcommand};
 
+mod run;
+pub use run::{run, write_audit_report};
+
 // The "Examples:" blocks are macros, not consts, so that `concat!` can join them with
 // the notes of the long help (`--help`), while `-h` shows the examples alone. Every
 // example line is a real command line: the tests below parse each one with this

@@ -13,6 +13,7 @@
 mod archive;
 pub mod dtype;
 pub mod gguf;
+pub mod memory;
 pub mod numpy;
 pub mod pickle;
 pub mod pytorch;
@@ -21,6 +22,7 @@ pub mod safetensors;
 use std::borrow::Cow;
 use std::fs::File;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 use memmap2::Mmap;
 use ndarray::{Array1, Array2, ArrayD, IxDyn};
@@ -41,6 +43,8 @@ pub enum Format {
     Numpy,
     /// GGUF v2/v3.
     Gguf,
+    /// Tables handed over in memory (the Python package's arrays), see [`memory`].
+    Memory,
 }
 
 impl std::fmt::Display for Format {
@@ -50,6 +54,7 @@ impl std::fmt::Display for Format {
             Format::Pytorch => "pytorch",
             Format::Numpy => "numpy",
             Format::Gguf => "gguf",
+            Format::Memory => "memory",
         })
     }
 }
@@ -183,6 +188,8 @@ pub struct SourceFile {
     /// The file's path as given or found.
     pub path: PathBuf,
     map: Option<Mmap>,
+    /// Bytes held in memory instead of a mapped file ([`memory`]); `map` is then `None`.
+    memory: Option<Arc<dyn AsRef<[u8]> + Send + Sync>>,
 }
 
 impl std::fmt::Debug for SourceFile {
@@ -216,11 +223,15 @@ impl SourceFile {
         Ok(SourceFile {
             path: path.to_path_buf(),
             map,
+            memory: None,
         })
     }
 
     /// The whole file's bytes.
     pub fn bytes(&self) -> &[u8] {
+        if let Some(memory) = &self.memory {
+            return (**memory).as_ref();
+        }
         self.map.as_deref().unwrap_or(&[])
     }
 
@@ -263,6 +274,9 @@ pub struct Checkpoint {
     pub config: Option<ConfigHints>,
     /// Non-fatal problems (e.g. a broken `config.json`).
     pub warnings: Vec<String>,
+    /// Kinds given by the caller for some tensors (in-memory tables, [`memory`]): the
+    /// detector takes them as given. Empty for checkpoints opened from files.
+    pub kind_hints: Vec<(String, crate::detect::Kind)>,
 }
 
 /// Guesses the format of one file from its first bytes, then its extension.
@@ -340,6 +354,7 @@ impl Checkpoint {
             tensors: opened.tensors,
             config,
             warnings,
+            kind_hints: Vec::new(),
         })
     }
 
@@ -602,7 +617,7 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
         Some(Format::Pytorch) => pytorch::open_files(vec![file]),
         Some(Format::Numpy) => numpy::open(path, file),
         Some(Format::Gguf) => gguf::open(file),
-        None => {
+        None | Some(Format::Memory) => {
             // An unknown extension: try safetensors' header as the last resort, since it
             // has no magic number.
             safetensors::open_files(vec![file]).map_err(|_| CheckpointError::NotACheckpoint {

@@ -106,6 +106,16 @@ fn mantissa_bits(d: &Dtype) -> u32 {
 /// comparison to these tensor names (treated as tables even if the detector would not);
 /// each must exist in at least one checkpoint.
 pub fn compare(paths: &[PathBuf], forced: &[String]) -> Result<CompareReport, String> {
+    compare_with(paths, forced, &open)
+}
+
+/// [`compare`] with checkpoints opened by `open` (called with each of `paths`, possibly
+/// more than once): the Python package passes checkpoints held in memory this way.
+pub fn compare_with(
+    paths: &[PathBuf],
+    forced: &[String],
+    open: &dyn Fn(&Path) -> Result<Checkpoint, String>,
+) -> Result<CompareReport, String> {
     if paths.len() < 2 {
         return Err(format!(
             "compare needs at least two checkpoints, got {}",
