@@ -51,6 +51,7 @@ print("worst finding:", posaudit.worst(report))
 plots = sorted(out.glob("*.svg"))
 print("report:", out / "report.md")
 print("plots:", ", ".join(p.name for p in plots))
+print("look at:", out / "t01-norms.svg" if (out / "t01-norms.svg").exists() else plots[0])
 # In a notebook, show one:  from IPython.display import SVG; SVG(filename=str(plots[0]))
 
 # --- gate on it, as `--fail-on warning` does ----------------------------------------------
