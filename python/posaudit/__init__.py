@@ -10,7 +10,7 @@ Files::
     >>> import posaudit
     >>> report = posaudit.audit("examples/demo/checkpoints/text-extended")
     >>> [(t["name"], t["kind"]) for t in report["tables"]]
-    [('transformer.wpe.weight', 'learned-absolute')]
+    [('tern.embeddings.position_embeddings.weight', 'learned-absolute')]
     >>> posaudit.worst(report)
     'warning'
 
@@ -18,10 +18,10 @@ Tables held in memory (a NumPy array, or anything ``numpy.asarray`` accepts with
 array interface, e.g. ``model.transformer.wpe.weight.detach().cpu().numpy()``)::
 
     >>> import numpy as np
-    >>> table = np.random.default_rng(0).normal(0, 0.02, (64, 16))   # invented noise
-    >>> report = posaudit.audit_array(table, name="wpe")
-    >>> report["tables"][0]["untrained"]["count"]                     # doctest: +SKIP
-    64
+    >>> table = np.random.default_rng(0).normal(0, 0.02, (512, 64))   # invented: noise rows...
+    >>> table[:300] = np.cos(np.arange(300)[:, None] / (20.0 * 1.5 ** np.arange(64)))  # ...and smooth ones
+    >>> posaudit.audit_array(table, name="wpe")["tables"][0]["verdict"]
+    'trained rows 0..300, untrained tail from row 300 (212 rows)'
 
 Errors: an input that cannot be used raises :class:`InputError` (a ``ValueError``) whose
 message is the command line's one line (naming the file or table and the problem). The
@@ -318,11 +318,11 @@ def audit_array(
     checkpoint path in the document is ``<array>`` and its format ``memory``::
 
         >>> import numpy as np
-        >>> pos = np.arange(128)[:, None] / 20.0
-        >>> table = np.concatenate([np.sin(pos * np.arange(1, 17)), np.cos(pos * np.arange(1, 17))], 1)
-        >>> doc = posaudit.audit_array(table, name="wpe", config={"max_position_embeddings": 128})
-        >>> doc["tables"][0]["kind"]
-        'learned-absolute'
+        >>> table = np.random.default_rng(0).normal(0, 0.02, (512, 64))
+        >>> table[:300] = np.cos(np.arange(300)[:, None] / (20.0 * 1.5 ** np.arange(64)))
+        >>> doc = posaudit.audit_array(table, name="wpe", config={"max_position_embeddings": 512})
+        >>> doc["tables"][0]["untrained"]["first"]
+        300
     """
     level = _fail_on_level(fail_on)
     keep: list = []
@@ -349,10 +349,13 @@ def compare_arrays(
     ``<array 0>``, ``<array 1>``, ...); ``name``, ``kind``, ``config``, ``out`` and
     ``fail_on`` as in :func:`audit_array` and :func:`compare`::
 
-        >>> snapshots = []
-        >>> for step in range(3):                 # in a training loop
-        ...     snapshots.append(model_table.copy())          # doctest: +SKIP
-        >>> doc = posaudit.compare_arrays(snapshots, name="wpe", labels=["0", "100", "200"])  # doctest: +SKIP
+        snapshots = []
+        for step in range(num_steps):                       # a training loop
+            train_step()
+            if step % 1000 == 0:
+                snapshots.append(model.transformer.wpe.weight.detach().cpu().numpy().copy())
+        doc = posaudit.compare_arrays(snapshots, name="wpe", labels=["0", "1000", "2000"])
+        [s["subspace_similarity"] for s in doc["tables"][0]["steps"]]
     """
     level = _fail_on_level(fail_on)
     arrays = list(arrays)
