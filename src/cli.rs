@@ -304,7 +304,7 @@ pub struct CompareArgs {
 /// Reports a command-line error. Help and version requests print as clap prints them
 /// (exit 0); `posaudit` alone prints the help on stderr (exit 2); every other argument
 /// error is one line on stderr, `posaudit: <what is wrong> (see --help)`, exit 2.
-pub fn report_parse_error(e: clap::Error) -> std::process::ExitCode {
+pub fn report_parse_error(e: clap::Error) -> u8 {
     use clap::error::ErrorKind;
     match e.kind() {
         ErrorKind::DisplayHelp
@@ -312,11 +312,11 @@ pub fn report_parse_error(e: clap::Error) -> std::process::ExitCode {
         | ErrorKind::DisplayHelpOnMissingArgumentOrSubcommand => {
             let code = if e.use_stderr() { 2 } else { 0 };
             let _ = e.print();
-            std::process::ExitCode::from(code)
+            code
         }
         _ => {
             eprintln!("posaudit: {}", parse_error_line(&e));
-            std::process::ExitCode::from(2)
+            2
         }
     }
 }

@@ -504,6 +504,14 @@ pub fn detect(ckpt: &Checkpoint, forced: &[String]) -> Result<Detection, Checkpo
             out.index_buffers.push(b);
             continue;
         }
+        if let Some((_, kind)) = ckpt.kind_hints.iter().find(|(n, _)| n == &t.name) {
+            out.tables.push(Detected {
+                name: t.name.clone(),
+                kind: *kind,
+                why: format!("kind {} given by the caller", kind.as_str()),
+            });
+            continue;
+        }
         let found = if forced.iter().any(|f| f == &t.name) {
             force(ckpt, t)?
         } else {

@@ -15,6 +15,7 @@ pub mod dtype;
 pub mod ggml_quants;
 pub mod gguf;
 pub mod limits;
+pub mod memory;
 pub mod numpy;
 pub mod pickle;
 pub mod pytorch;
@@ -24,6 +25,7 @@ use std::borrow::Cow;
 use std::collections::HashMap;
 use std::fs::File;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 use memmap2::Mmap;
 use ndarray::{Array1, Array2, ArrayD, IxDyn};
@@ -45,6 +47,8 @@ pub enum Format {
     Numpy,
     /// GGUF v2/v3.
     Gguf,
+    /// Tables handed over in memory (the Python package's arrays), see [`memory`].
+    Memory,
 }
 
 impl std::fmt::Display for Format {
@@ -54,6 +58,7 @@ impl std::fmt::Display for Format {
             Format::Pytorch => "pytorch",
             Format::Numpy => "numpy",
             Format::Gguf => "gguf",
+            Format::Memory => "memory",
         })
     }
 }
@@ -211,6 +216,8 @@ pub struct SourceFile {
     /// The file's path as given or found.
     pub path: PathBuf,
     map: Option<Mmap>,
+    /// Bytes held in memory instead of a mapped file ([`memory`]); `map` is then `None`.
+    memory: Option<Arc<dyn AsRef<[u8]> + Send + Sync>>,
 }
 
 impl std::fmt::Debug for SourceFile {
@@ -239,11 +246,15 @@ impl SourceFile {
         Ok(SourceFile {
             path: path.to_path_buf(),
             map,
+            memory: None,
         })
     }
 
     /// The whole file's bytes.
     pub fn bytes(&self) -> &[u8] {
+        if let Some(memory) = &self.memory {
+            return (**memory).as_ref();
+        }
         self.map.as_deref().unwrap_or(&[])
     }
 
@@ -353,6 +364,9 @@ pub struct Checkpoint {
     pub warnings: Vec<String>,
     /// Position of each tensor in `tensors` by name (names are unique: checked at open).
     by_name: HashMap<String, usize>,
+    /// Kinds given by the caller for some tensors (in-memory tables, [`memory`]): the
+    /// detector takes them as given. Empty for checkpoints opened from files.
+    pub kind_hints: Vec<(String, crate::detect::Kind)>,
 }
 
 /// Checks the tensor names of an opened checkpoint against [`limits::MAX_NAME_BYTES`]
@@ -493,6 +507,7 @@ impl Checkpoint {
             config,
             warnings,
             by_name,
+            kind_hints: Vec::new(),
         })
     }
 
@@ -767,7 +782,7 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
         Some(Format::Pytorch) => pytorch::open_files(vec![file]),
         Some(Format::Numpy) => numpy::open(path, file),
         Some(Format::Gguf) => gguf::open(file),
-        None => {
+        None | Some(Format::Memory) => {
             // An unknown extension: try safetensors' header as the last resort, since it
             // has no magic number.
             safetensors::open_files(vec![file]).map_err(|_| CheckpointError::NotACheckpoint {

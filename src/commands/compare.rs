@@ -83,6 +83,15 @@ fn mantissa_bits(d: &Dtype) -> u32 {
 
 /// Compares the checkpoints of `options` in order.
 pub fn run(options: &CompareOptions) -> Result<CompareReport> {
+    run_with(options, &open)
+}
+
+/// [`run`] with checkpoints opened by `open` (called with each of the paths, possibly
+/// more than once): the Python package passes checkpoints held in memory this way.
+pub fn run_with(
+    options: &CompareOptions,
+    open: &dyn Fn(&Path) -> Result<Checkpoint>,
+) -> Result<CompareReport> {
     let (paths, forced) = (&options.paths[..], &options.tables[..]);
     if paths.len() < 2 {
         return Err(Error::Usage(format!(

@@ -16,3 +16,32 @@ pub mod markdown;
 pub mod output;
 pub mod plots;
 pub mod terminal;
+
+use crate::model::audit::AuditReport;
+use crate::model::compare::CompareReport;
+
+/// The files of an audit's `--out` folder except `report.json`: the SVG plots that
+/// `report.md` links, then `report.md` itself (written last, so it never links a plot
+/// that is not there yet).
+pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
+    let (md, figures) = markdown::audit::render(report);
+    let mut files: Vec<(String, Vec<u8>)> = figures
+        .into_iter()
+        .map(|f| (f.file, f.svg.into_bytes()))
+        .collect();
+    files.push(("report.md".into(), md.into_bytes()));
+    files
+}
+
+/// The files of a comparison's `--out` folder except `report.json` (see [`audit_files`]).
+pub fn compare_files(report: &CompareReport) -> Vec<(String, Vec<u8>)> {
+    let mut files: Vec<(String, Vec<u8>)> = figures::compare::render_plots(report)
+        .into_iter()
+        .map(|(name, svg)| (name, svg.into_bytes()))
+        .collect();
+    files.push((
+        "report.md".into(),
+        markdown::compare::render(report).into_bytes(),
+    ));
+    files
+}
