@@ -187,6 +187,7 @@ pub fn repeated_block(table: ArrayView2<f64>, tolerance: f64) -> Option<Repeated
             cands.push((covered, lag, a - lag));
         }
     };
+    #[allow(clippy::needless_range_loop)] // `i` is also the row compared with earlier rows
     for i in 0..n {
         next.clear();
         if usable[i] {

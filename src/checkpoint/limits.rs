@@ -61,6 +61,7 @@ pub fn shown(text: &str) -> String {
 
 /// [`shown`] with another length limit (for library error texts that quote the file,
 /// such as a JSON parser's, whose position at the end must survive).
+#[allow(clippy::explicit_counter_loop)]
 pub fn shown_max(text: &str, max_chars: usize) -> String {
     let mut out = String::new();
     let mut count = 0usize;
