@@ -247,6 +247,10 @@ def mpnet(dir_):
                 "config_rows": buckets,
                 "numbers": table_numbers(bias, skip_rows=unreachable),
                 "unreachable_rows_values": [[float(v) for v in bias[b]] for b in unreachable],
+                # An N(0, initializer_range^2) row of `heads` values has norm about
+                # initializer_range x sqrt(heads); an unreachable bucket gets no gradient.
+                "initial_scale_row_norm": cfg["initializer_range"] * math.sqrt(bias.shape[1]),
+                "unreachable_rows_norm": [float(np.linalg.norm(bias[b].astype(np.float64))) for b in unreachable],
             },
             {
                 "name": "embeddings.position_ids",
