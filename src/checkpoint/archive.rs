@@ -138,7 +138,8 @@ pub(crate) fn member_prefix(
     n: usize,
 ) -> Result<Vec<u8>, CheckpointError> {
     match &member.storage {
-        Storage::Mapped { offset, len } => {
+        // Archive members are never varint runs (those are ONNX typed fields).
+        Storage::Mapped { offset, len } | Storage::Varints { offset, len, .. } => {
             let end = offset.saturating_add((*len).min(n));
             Ok(file.bytes().get(*offset..end).unwrap_or_default().to_vec())
         }

@@ -15,6 +15,7 @@ pub mod dtype;
 pub mod ggml_quants;
 pub mod gguf;
 pub mod numpy;
+pub mod onnx;
 pub mod pickle;
 pub mod pytorch;
 pub mod safetensors;
@@ -42,6 +43,8 @@ pub enum Format {
     Numpy,
     /// GGUF v2/v3.
     Gguf,
+    /// ONNX model (`.onnx`, with external data files).
+    Onnx,
 }
 
 impl std::fmt::Display for Format {
@@ -51,6 +54,7 @@ impl std::fmt::Display for Format {
             Format::Pytorch => "pytorch",
             Format::Numpy => "numpy",
             Format::Gguf => "gguf",
+            Format::Onnx => "onnx",
         })
     }
 }
@@ -122,6 +126,16 @@ pub enum Storage {
         /// Bytes at the start of the inflated member that precede the storage (the
         /// header of an `.npy` member of an `.npz`; 0 for torch storages).
         skip: usize,
+    },
+    /// Packed protobuf varints (ONNX typed fields), decoded when read into `width`-byte
+    /// little-endian integers.
+    Varints {
+        /// Byte offset of the packed run in the file.
+        offset: usize,
+        /// Length of the run in bytes.
+        len: usize,
+        /// Bytes per decoded element.
+        width: usize,
     },
 }
 
@@ -293,6 +307,7 @@ pub fn sniff(path: &Path, bytes: &[u8]) -> Option<Format> {
     match ext.as_str() {
         "safetensors" => Some(Format::Safetensors),
         "gguf" => Some(Format::Gguf),
+        "onnx" => Some(Format::Onnx),
         "npy" | "npz" => Some(Format::Numpy),
         "bin" | "pt" | "pth" | "ckpt" => Some(Format::Pytorch),
         _ => None,
@@ -387,6 +402,9 @@ impl Checkpoint {
                             ),
                         )
                     })
+            }
+            Storage::Varints { offset, len, width } => {
+                onnx::decode_varints(file, *offset, *len, *width).map(Cow::Owned)
             }
             Storage::ZipMember { member, skip } => {
                 let mut bytes = read_zip_member(file, member)?;
@@ -603,6 +621,7 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
         Some(Format::Pytorch) => pytorch::open_files(vec![file]),
         Some(Format::Numpy) => numpy::open(path, file),
         Some(Format::Gguf) => gguf::open(file),
+        Some(Format::Onnx) => onnx::open(file),
         None => {
             // An unknown extension: try safetensors' header as the last resort, since it
             // has no magic number.
@@ -656,6 +675,9 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
     if single.is_file() {
         return open_file(&single);
     }
+    if dir.join("model.onnx").is_file() {
+        return open_file(&dir.join("model.onnx"));
+    }
     // Otherwise exactly one file of another format; several are ambiguous.
     let others: Vec<&PathBuf> = names
         .iter()
@@ -666,7 +688,7 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
                 .unwrap_or_default();
             matches!(
                 ext.as_str(),
-                "bin" | "pt" | "pth" | "ckpt" | "npy" | "npz" | "gguf"
+                "bin" | "pt" | "pth" | "ckpt" | "npy" | "npz" | "gguf" | "onnx"
             )
         })
         .collect();
