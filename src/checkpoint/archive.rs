@@ -138,8 +138,7 @@ pub(crate) fn member_prefix(
     n: usize,
 ) -> Result<Vec<u8>, CheckpointError> {
     match &member.storage {
-        // Archive members are never varint runs (those are ONNX typed fields).
-        Storage::Mapped { offset, len } | Storage::Varints { offset, len, .. } => {
+        Storage::Mapped { offset, len } => {
             let end = offset.saturating_add((*len).min(n));
             Ok(file.bytes().get(*offset..end).unwrap_or_default().to_vec())
         }
@@ -157,5 +156,10 @@ pub(crate) fn member_prefix(
             })?;
             Ok(out)
         }
+        // Archive members are never varint runs (those are ONNX typed fields).
+        Storage::Varints { .. } => Err(CheckpointError::invalid(
+            &file.path,
+            "unexpected storage for an archive member",
+        )),
     }
 }

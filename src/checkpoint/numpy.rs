@@ -408,18 +408,20 @@ fn open_npz(file: SourceFile) -> Result<Opened, CheckpointError> {
                     format!("array `{name}`: {}", too_short(nbytes, &h, m.size)),
                 ));
             }
-            (Storage::Mapped { offset, .. } | Storage::Varints { offset, .. }, _, _) => {
-                Storage::Mapped {
-                    offset: offset + h.data_offset,
-                    len: nbytes
-                        .unwrap_or(0)
-                        .min(m.size as usize - h.data_offset.min(m.size as usize)),
-                }
-            }
+            (Storage::Mapped { offset, .. }, _, _) => Storage::Mapped {
+                offset: offset + h.data_offset,
+                len: nbytes
+                    .unwrap_or(0)
+                    .min(m.size as usize - h.data_offset.min(m.size as usize)),
+            },
             (Storage::ZipMember { member, .. }, _, _) => Storage::ZipMember {
                 member: member.clone(),
                 skip: h.data_offset,
             },
+            // Archive members are never varint runs (those are ONNX typed fields).
+            (Storage::Varints { .. }, _, _) => {
+                return Err(CheckpointError::invalid(&file.path, "unexpected storage"));
+            }
         };
         tensors.push(tensor(name.to_string(), &h, 0, storage));
     }
