@@ -180,7 +180,7 @@ pub enum NameHint {
 
 /// Scores the name of a (float) tensor.
 pub fn score(name: &str) -> NameHint {
-    let toks = tokens(name);
+    let toks = tokens(node_output_stem(name));
     if let Some(o) = toks.iter().find(|t| OTHER_ROLE.contains(&t.as_str())) {
         return NameHint::Other(o.clone());
     }
@@ -200,6 +200,16 @@ pub fn score(name: &str) -> NameHint {
     match table {
         Some((_, t)) => NameHint::Strong(format!("`{}` + `{t}`", toks[p])),
         None => NameHint::Weak(format!("`{}`", toks[p])),
+    }
+}
+
+/// ONNX exporters name a Constant node's tensor after the node's output
+/// (`/encoder/Constant_output_0`): that `output` is the graph's, not an output head's.
+/// Returns the name without that suffix.
+fn node_output_stem(name: &str) -> &str {
+    match name.rsplit_once("_output_") {
+        Some((stem, n)) if !n.is_empty() && n.bytes().all(|b| b.is_ascii_digit()) => stem,
+        _ => name,
     }
 }
 
@@ -250,6 +260,18 @@ mod tests {
         assert_eq!(tokens("posEmbedding-2"), ["pos", "embedding", "2"]);
         assert_eq!(tokens("blk.0.ffn_norm1"), ["blk", "0", "ffn", "norm", "1"]);
         assert_eq!(tokens("HTMLParser"), ["html", "parser"]);
+    }
+
+    #[test]
+    fn onnx_node_outputs_are_not_output_heads() {
+        // ONNX exporters name Constant node tensors `<path>/<Op>_output_<n>` (common
+        // practice of the torch.onnx exporter, from memory); the output head stays vetoed.
+        assert!(matches!(
+            score("/encoder/Constant_output_0"),
+            NameHint::None
+        ));
+        assert!(matches!(score("output.weight"), NameHint::Other(_)));
+        assert!(matches!(score("lm_head_output_x"), NameHint::Other(_)));
     }
 
     #[test]
