@@ -2,18 +2,31 @@
 //! probe of a few sampled rows.
 //!
 //! The rules, in order:
-//! 1. Tensors of a type the analyses cannot read are listed as skipped, with the reason.
-//! 2. Names of known non-position tensors (token and token-type embeddings, norms,
-//!    class/register tokens, output heads) are never tables.
+//! 1. Tensors of a type the analyses cannot read (quantized blocks, ...) are listed as
+//!    skipped, with the reason.
+//! 2. Optimizer state (Adam `exp_avg` / `exp_avg_sq`, momentum buffers, anything under
+//!    an optimizer subtree of a training checkpoint) is never a table.
 //! 3. Integer `position_ids` buffers are `position-ids`; stored inverse frequencies are
 //!    `rotary-frequencies`; relative-bias tables are `relative-bias`.
-//! 4. A tensor whose name says "position" is a 2-D grid when its shape is `(1, h, w, d)`
-//!    or `(1, extra + h·w, d)` (or a vision name with a square row count), else a 1-D
-//!    table: `fixed-sinusoidal` when its sampled rows are an exact sine/cosine pattern,
-//!    `learned-absolute` otherwise.
-//! 5. A tensor whose name gives no hint is a table only when its content is clearly one:
-//!    sampled rows that are an exact sinusoid, or rows so smooth along the first axis
-//!    (median neighbour cosine > 0.95) that no weight matrix looks like that.
+//! 4. The name is scored by its tokens ([`names`]): a word of another role (token, type,
+//!    norm, attention, projection, class token, output head, ...) means "not a table"
+//!    whatever the content. A position word with a table word (`position` + `embd`,
+//!    `pos` + `embed`, `wpe`) makes a table candidate: a 2-D grid when its shape is
+//!    `(1, h, w, d)` or `(1, extra + h·w, d)` (or a vision name with a square row count),
+//!    else a 1-D table, `fixed-sinusoidal` when its sampled rows are an exact sine/cosine
+//!    pattern, `learned-absolute` otherwise.
+//! 5. A position word alone is a table when the shape agrees (rows equal a declared
+//!    maximum such as `max_position_embeddings`, `n_positions`, `max_source_positions` or
+//!    GGUF's `context_length`, or it plus 2 or `pad_token_id + 1` offset rows) or the
+//!    content does (a smooth region, below).
+//! 6. A tensor whose name gives no hint is a table only when its content is clearly one:
+//!    sampled rows that are an exact sinusoid, or a smooth region where consecutive
+//!    sampled neighbour pairs have cosine > 0.5 for at least four pairs in a row with a
+//!    median above 0.95. The region is found where it is, so half a table of untrained
+//!    noise does not hide the trained half; `why` names the rows it used.
+//!
+//! `why` lists every piece of evidence: the name's words, the shape against the config
+//! (and the width against the hidden size), and the content probe.
 //!
 //! The probe reads at most [`PROBE_ROWS`] rows, so detection costs no more than reading
 //! headers, whatever the size of the checkpoint.
@@ -21,6 +34,10 @@
 use serde::Serialize;
 
 use crate::checkpoint::{Checkpoint, CheckpointError, TensorInfo};
+
+mod names;
+
+use names::NameHint;
 
 /// The kinds of position table (contract strings).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -139,97 +156,6 @@ fn index_buffer(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Option<IndexBuffer>
 /// Maximum rows read by the content probe of one tensor.
 pub const PROBE_ROWS: usize = 24;
 
-/// Words that mark a tensor as a position table.
-const POSITION_WORDS: [&str; 14] = [
-    "wpe",
-    "position_embeddings",
-    "position_embedding",
-    "positional_embedding",
-    "positional_embeddings",
-    "positional_encoding",
-    "pos_embed",
-    "pos_embedding",
-    "pos_emb",
-    "embed_positions",
-    "posembed_input",
-    "pos_embedding_table",
-    "position_encoding",
-    "absolute_pos_embed",
-];
-
-/// Words that mark a tensor as something else, whatever its content.
-const EXCLUDED_WORDS: [&str; 20] = [
-    "token_type",
-    "word_embeddings",
-    "wte",
-    "embed_tokens",
-    "tok_embeddings",
-    "token_embd",
-    "token_embedding",
-    "lm_head",
-    "layernorm",
-    "layer_norm",
-    "norm",
-    "cls_token",
-    "dist_token",
-    "reg_token",
-    "register_tokens",
-    "mask_token",
-    "class_embedding",
-    "segment",
-    "output",
-    "classifier",
-];
-
-fn tokens(name: &str) -> Vec<String> {
-    name.to_ascii_lowercase()
-        .split(['.', '/'])
-        .map(str::to_string)
-        .collect()
-}
-
-fn has_word(name: &str, words: &[&str]) -> Option<String> {
-    let lower = name.to_ascii_lowercase();
-    for tok in tokens(name) {
-        for w in words {
-            if tok == *w || tok.starts_with(&format!("{w}_")) || tok.ends_with(&format!("_{w}")) {
-                return Some((*w).to_string());
-            }
-        }
-    }
-    // Layer-norm style names are often glued ("ln_f", "norm1"): match by substring.
-    for w in words {
-        if (*w == "norm" && lower.contains("norm"))
-            || (*w == "layernorm" && lower.contains("layernorm"))
-        {
-            return Some((*w).to_string());
-        }
-    }
-    None
-}
-
-fn is_rotary_name(name: &str) -> bool {
-    let l = name.to_ascii_lowercase();
-    l.ends_with("inv_freq")
-        || l.contains("rope.freqs")
-        || l.contains("rope_freqs")
-        || l.contains("rope_factors")
-}
-
-fn is_relative_name(name: &str) -> bool {
-    let l = name.to_ascii_lowercase();
-    l.contains("relative_attention_bias")
-        || l.contains("relative_position_bias_table")
-        || l.contains("rel_pos_bias")
-}
-
-fn is_vision_name(name: &str) -> bool {
-    let l = name.to_ascii_lowercase();
-    ["vision", "visual", "patch", "vit", "image", "img"]
-        .iter()
-        .any(|w| l.contains(w))
-}
-
 /// The number of leading non-grid rows (0..=8) that leaves a square grid of at least 2×2,
 /// smallest first.
 pub fn square_grid_split(rows: usize) -> Option<(usize, usize)> {
@@ -258,18 +184,72 @@ fn probe_rows(n: usize) -> Vec<usize> {
 }
 
 /// Evidence from the probe of sampled rows.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 struct Probe {
     /// The sampled rows are an exact sine/cosine pattern; the layout that fits.
     sinusoid: Option<&'static str>,
-    /// Median cosine between sampled neighbouring rows.
+    /// Median cosine between all sampled neighbouring rows.
     neighbour_cosine: Option<f64>,
+    /// The smooth region: the longest run of consecutive sampled neighbour pairs whose
+    /// cosine is above [`SMOOTH_PAIR`], as (first row, last row + 1, pairs, median cosine).
+    /// Judged where the smoothness is, so an untrained noise tail (or a few unused
+    /// leading rows) does not hide a trained table.
+    smooth: Option<(usize, usize, usize, f64)>,
+    /// Number of neighbour pairs sampled.
+    pairs: usize,
+    /// Every sampled value is >= 0 (squared moments, counts, probabilities): any two such
+    /// rows have a high cosine, so smoothness says nothing about position.
+    non_negative: bool,
 }
+
+impl Probe {
+    fn empty() -> Probe {
+        Probe {
+            sinusoid: None,
+            neighbour_cosine: None,
+            smooth: None,
+            pairs: 0,
+            non_negative: false,
+        }
+    }
+
+    /// Does the smooth region say "position table" at this cosine threshold? It needs at
+    /// least [`MIN_SMOOTH_PAIRS`] pairs (or every pair of a table too small for that).
+    fn smooth_at(&self, threshold: f64) -> Option<(usize, usize, usize, f64)> {
+        self.smooth.filter(|(_, _, k, c)| {
+            *c > threshold && (*k >= MIN_SMOOTH_PAIRS || (*k == self.pairs && *k >= 3))
+        })
+    }
+
+    fn describe(&self) -> String {
+        match (self.smooth, self.neighbour_cosine) {
+            (Some((a, b, k, c)), Some(all)) => format!(
+                "content: median neighbour cosine {c:.3} over rows {a}..{b} ({k} of {} sampled pairs; {all:.3} over all)",
+                self.pairs
+            ),
+            (None, Some(all)) => format!(
+                "content: median neighbour cosine {all:.3} over {} sampled pairs, no smooth region",
+                self.pairs
+            ),
+            _ => "content: too few rows to probe".to_string(),
+        }
+    }
+}
+
+/// Cosine above which a sampled neighbour pair counts as smooth.
+const SMOOTH_PAIR: f64 = 0.5;
+/// Fewest consecutive smooth pairs that make a smooth region.
+const MIN_SMOOTH_PAIRS: usize = 4;
 
 fn cosine(a: ndarray::ArrayView1<f64>, b: ndarray::ArrayView1<f64>) -> Option<f64> {
     let na = a.dot(&a).sqrt();
     let nb = b.dot(&b).sqrt();
     (na > 0.0 && nb > 0.0 && na.is_finite() && nb.is_finite()).then(|| a.dot(&b) / (na * nb))
+}
+
+fn median(v: &mut [f64]) -> Option<f64> {
+    v.sort_by(f64::total_cmp);
+    (!v.is_empty()).then(|| v[v.len() / 2])
 }
 
 /// Is every sampled non-zero row a sin/cos pattern: values in [-1, 1] and sin² + cos² = 1
@@ -315,33 +295,110 @@ fn sinusoid_layout(rows: &ndarray::Array2<f64>) -> Option<&'static str> {
 
 fn probe(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Probe, CheckpointError> {
     let Some((n, d)) = t.as_table_dims() else {
-        return Ok(Probe {
-            sinusoid: None,
-            neighbour_cosine: None,
-        });
+        return Ok(Probe::empty());
     };
     if n < 4 || d < 2 {
-        return Ok(Probe {
-            sinusoid: None,
-            neighbour_cosine: None,
-        });
+        return Ok(Probe::empty());
     }
     let idx = probe_rows(n);
     let rows = ckpt.read_rows(t, &idx)?;
-    let mut cos: Vec<f64> = Vec::new();
+    // Neighbour pairs in row order, with their cosine (None for a zero or non-finite row).
+    let mut pairs: Vec<(usize, Option<f64>)> = Vec::new();
     for k in 0..idx.len().saturating_sub(1) {
-        if idx[k + 1] == idx[k] + 1
-            && let Some(c) = cosine(rows.row(k), rows.row(k + 1))
-        {
-            cos.push(c);
+        if idx[k + 1] == idx[k] + 1 {
+            pairs.push((idx[k], cosine(rows.row(k), rows.row(k + 1))));
         }
     }
-    cos.sort_by(f64::total_cmp);
-    let neighbour_cosine = (!cos.is_empty()).then(|| cos[cos.len() / 2]);
+    let mut all: Vec<f64> = pairs.iter().filter_map(|p| p.1).collect();
+    let neighbour_cosine = median(&mut all);
+    // Longest run of consecutive smooth pairs (ties: the higher median).
+    let mut smooth: Option<(usize, usize, usize, f64)> = None;
+    let mut i = 0;
+    while i < pairs.len() {
+        if pairs[i].1.is_none_or(|c| c <= SMOOTH_PAIR) {
+            i += 1;
+            continue;
+        }
+        let mut j = i;
+        while j < pairs.len() && pairs[j].1.is_some_and(|c| c > SMOOTH_PAIR) {
+            j += 1;
+        }
+        let mut run: Vec<f64> = pairs[i..j].iter().filter_map(|p| p.1).collect();
+        let m = median(&mut run).unwrap_or(0.0);
+        let cand = (pairs[i].0, pairs[j - 1].0 + 2, j - i, m);
+        if smooth.is_none_or(|s| cand.2 > s.2 || (cand.2 == s.2 && cand.3 > s.3)) {
+            smooth = Some(cand);
+        }
+        i = j;
+    }
     Ok(Probe {
         sinusoid: sinusoid_layout(&rows),
         neighbour_cosine,
+        smooth,
+        pairs: pairs.len(),
+        non_negative: rows.iter().all(|v| *v >= 0.0),
     })
+}
+
+/// Shape and config evidence: the row count equals a declared maximum (or it plus a known
+/// offset), and the width equals the hidden size.
+fn shape_evidence(ckpt: &Checkpoint, t: &TensorInfo) -> (Option<String>, Option<String>) {
+    let Some((n, d)) = t.as_table_dims() else {
+        return (None, None);
+    };
+    let Some(cfg) = ckpt.config.as_ref() else {
+        return (None, None);
+    };
+    let source = if cfg.source.contains("GGUF") {
+        "GGUF metadata".to_string()
+    } else {
+        std::path::Path::new(&cfg.source)
+            .file_name()
+            .map_or("config".to_string(), |f| f.to_string_lossy().into_owned())
+    };
+    let mut rows = None;
+    for h in [&cfg.max_positions, &cfg.max_source_positions]
+        .into_iter()
+        .flatten()
+    {
+        let m = h.value as usize;
+        let pad_offset = cfg
+            .pad_token_id
+            .as_ref()
+            .filter(|p| p.value >= 0)
+            .map(|p| (p.value as usize + 1, format!("{} + 1", p.key)));
+        let offsets = std::iter::once((0usize, String::new()))
+            .chain(pad_offset)
+            .chain(std::iter::once((2, "2 (offset rows)".to_string())));
+        for (off, what) in offsets {
+            if m + off == n {
+                rows = Some(if off == 0 {
+                    format!("{n} rows = {} {m} ({source})", h.key)
+                } else {
+                    format!("{n} rows = {} {m} + {what} ({source})", h.key)
+                });
+                break;
+            }
+        }
+        if rows.is_some() {
+            break;
+        }
+    }
+    let width = cfg
+        .hidden_size
+        .as_ref()
+        .filter(|h| h.value as usize == d)
+        .map(|h| format!("width {d} = {} ({source})", h.key));
+    (rows, width)
+}
+
+fn join_evidence(parts: &[Option<String>]) -> String {
+    parts
+        .iter()
+        .flatten()
+        .cloned()
+        .collect::<Vec<_>>()
+        .join("; ")
 }
 
 /// Classifies a 1-D-or-grid table candidate whose name (or the user) already says it is a
@@ -353,42 +410,50 @@ fn classify_table(
 ) -> Result<Option<Detected>, CheckpointError> {
     let shape = &t.shape;
     let name = &t.name;
+    let vision = names::is_vision(name);
     let grid = match shape.as_slice() {
         [1, h, w, _] if *h >= 2 && *w >= 2 => {
             Some(format!("shape (1, {h}, {w}, dim) is a {h}x{w} grid"))
         }
-        [1, rows, _] | [rows, _] if shape.len() == 3 || is_vision_name(name) => {
-            square_grid_split(*rows)
-                .filter(|_| shape.len() == 3 || is_vision_name(name))
-                .map(|(extra, side)| format!("{rows} rows = {extra} extra + {side}x{side} grid"))
-        }
+        [1, rows, _] | [rows, _] if shape.len() == 3 || vision => square_grid_split(*rows)
+            .filter(|_| shape.len() == 3 || vision)
+            .map(|(extra, side)| format!("{rows} rows = {extra} extra + {side}x{side} grid")),
         _ => None,
     };
     let p = probe(ckpt, t)?;
+    let (rows_ev, width_ev) = shape_evidence(ckpt, t);
     if let Some(g) = grid {
         return Ok(Some(Detected {
             name: name.clone(),
             kind: Kind::LearnedGrid2d,
-            why: format!("{reason}; shape: {g}"),
+            why: join_evidence(&[
+                Some(reason.to_string()),
+                Some(format!("shape: {g}")),
+                width_ev,
+            ]),
         }));
     }
     if t.squeezed_shape().len() != 2 {
         return Ok(None);
     }
+    let shape_part = rows_ev.map(|r| format!("shape: {r}"));
     if let Some(layout) = p.sinusoid {
         return Ok(Some(Detected {
             name: name.clone(),
             kind: Kind::FixedSinusoidal,
-            why: format!(
-                "{reason}; content: sampled rows are an exact sine/cosine pattern ({layout})"
-            ),
+            why: join_evidence(&[
+                Some(reason.to_string()),
+                shape_part,
+                width_ev,
+                Some(format!(
+                    "content: sampled rows are an exact sine/cosine pattern ({layout})"
+                )),
+            ]),
         }));
     }
-    let named_fixed = name.to_ascii_lowercase().contains("sinusoid");
-    let content = match p.neighbour_cosine {
-        Some(c) => format!("content: median neighbour cosine {c:.3} on sampled rows"),
-        None => "content: too few rows to probe".to_string(),
-    };
+    let named_fixed = names::tokens(name)
+        .iter()
+        .any(|t| t.starts_with("sinusoid"));
     Ok(Some(Detected {
         name: name.clone(),
         kind: if named_fixed {
@@ -396,7 +461,12 @@ fn classify_table(
         } else {
             Kind::LearnedAbsolute
         },
-        why: format!("{reason}; {content}"),
+        why: join_evidence(&[
+            Some(reason.to_string()),
+            shape_part,
+            width_ev,
+            Some(p.describe()),
+        ]),
     }))
 }
 
@@ -404,13 +474,16 @@ fn classify_table(
 fn classify(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Option<Detected>, CheckpointError> {
     let name = &t.name;
     let squeezed = t.squeezed_shape();
+    if names::optimizer_state(name).is_some() {
+        return Ok(None);
+    }
     if t.dtype.is_integer() {
-        if name.to_ascii_lowercase().contains("position_ids") {
+        if names::is_position_ids(name) {
             return Ok(Some(Detected {
                 name: name.clone(),
                 kind: Kind::PositionIds,
                 why: format!(
-                    "name: `position_ids`; integer buffer of shape {:?}",
+                    "name: `position` + `ids`; integer buffer of shape {:?}",
                     t.shape
                 ),
             }));
@@ -420,7 +493,7 @@ fn classify(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Option<Detected>, Check
     if !t.dtype.is_float() {
         return Ok(None);
     }
-    if is_rotary_name(name) && squeezed.len() == 1 {
+    if names::is_rotary(name) && squeezed.len() == 1 {
         return Ok(Some(Detected {
             name: name.clone(),
             kind: Kind::RotaryFrequencies,
@@ -430,7 +503,7 @@ fn classify(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Option<Detected>, Check
             ),
         }));
     }
-    if is_relative_name(name) && squeezed.len() == 2 {
+    if names::is_relative(name) && squeezed.len() == 2 {
         return Ok(Some(Detected {
             name: name.clone(),
             kind: Kind::RelativeBias,
@@ -440,36 +513,62 @@ fn classify(ckpt: &Checkpoint, t: &TensorInfo) -> Result<Option<Detected>, Check
             ),
         }));
     }
-    if has_word(name, &EXCLUDED_WORDS).is_some() {
-        return Ok(None);
-    }
-    if let Some(word) = has_word(name, &POSITION_WORDS) {
-        if squeezed.len() >= 2 {
-            return classify_table(ckpt, t, &format!("name: `{word}`"));
+    let hint = names::score(name);
+    match &hint {
+        NameHint::Other(_) => return Ok(None),
+        NameHint::Strong(words) => {
+            if squeezed.len() >= 2 {
+                return classify_table(ckpt, t, &format!("name: {words}"));
+            }
+            return Ok(None);
         }
-        return Ok(None);
+        NameHint::Weak(_) | NameHint::None => {}
     }
-    // No hint in the name: only clear content makes it a table.
     if squeezed.len() != 2 || squeezed[0] < 16 || squeezed[1] < 4 {
         return Ok(None);
     }
     let p = probe(ckpt, t)?;
+    let (rows_ev, width_ev) = shape_evidence(ckpt, t);
+    if let NameHint::Weak(word) = &hint {
+        // A position word alone: the shape or the content must agree.
+        let smooth = p.smooth_at(0.9).filter(|_| !p.non_negative);
+        if rows_ev.is_some() || smooth.is_some() || p.sinusoid.is_some() {
+            return classify_table(
+                ckpt,
+                t,
+                &format!("name: {word} (a position word, no table word)"),
+            );
+        }
+        return Ok(None);
+    }
+    // No hint in the name: only clear content makes it a table.
     if let Some(layout) = p.sinusoid {
         return Ok(Some(Detected {
             name: name.clone(),
             kind: Kind::FixedSinusoidal,
-            why: format!(
-                "content: sampled rows are an exact sine/cosine pattern ({layout}); the name gives no hint"
-            ),
+            why: join_evidence(&[
+                Some(format!(
+                    "content: sampled rows are an exact sine/cosine pattern ({layout})"
+                )),
+                rows_ev.map(|r| format!("shape: {r}")),
+                width_ev,
+                Some("the name has no position word".to_string()),
+            ]),
         }));
     }
-    if let Some(c) = p.neighbour_cosine.filter(|c| *c > 0.95) {
+    if p.smooth_at(0.95).is_some() && !p.non_negative {
         return Ok(Some(Detected {
             name: name.clone(),
             kind: Kind::LearnedAbsolute,
-            why: format!(
-                "content: rows are smooth along the first axis (median neighbour cosine {c:.3}); the name gives no hint"
-            ),
+            why: join_evidence(&[
+                Some(format!(
+                    "rows are smooth along the first axis, {}",
+                    p.describe()
+                )),
+                rows_ev.map(|r| format!("shape: {r}")),
+                width_ev,
+                Some("the name has no position word".to_string()),
+            ]),
         }));
     }
     Ok(None)
@@ -645,28 +744,6 @@ mod tests {
         assert!(rows.iter().all(|&r| r < 100_000));
         assert!(rows.windows(2).filter(|w| w[1] == w[0] + 1).count() >= 8);
         assert_eq!(probe_rows(5), vec![0, 1, 2, 3, 4]);
-    }
-
-    #[test]
-    fn names_are_classified_by_their_words() {
-        assert!(has_word("transformer.wpe.weight", &POSITION_WORDS).is_some());
-        assert!(
-            has_word(
-                "bert.embeddings.position_embeddings.weight",
-                &POSITION_WORDS
-            )
-            .is_some()
-        );
-        assert!(
-            has_word(
-                "bert.embeddings.token_type_embeddings.weight",
-                &EXCLUDED_WORDS
-            )
-            .is_some()
-        );
-        assert!(has_word("transformer.wte.weight", &EXCLUDED_WORDS).is_some());
-        assert!(has_word("bert.embeddings.LayerNorm.weight", &EXCLUDED_WORDS).is_some());
-        assert!(has_word("transformer.wte.weight", &POSITION_WORDS).is_none());
     }
 
     #[test]

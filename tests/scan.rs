@@ -507,3 +507,176 @@ fn mutated_files_give_a_result_or_an_input_error_never_a_panic() {
         }
     }
 }
+
+// ---- detection that generalises (fixtures/scan/names, written by fixtures/generate.py's
+// name_fixtures with the gguf, numpy and safetensors writers; invented data) ----------
+
+fn table<'a>(doc: &'a Value, name: &str) -> &'a Value {
+    doc["tables"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|t| t["name"] == name)
+        .unwrap_or_else(|| panic!("{name} not listed: {}", doc["tables"]))
+}
+
+#[test]
+fn gguf_canonical_position_table_name_is_recognised() {
+    // GGUF's own name for the learned position table of the GPT-2 family is
+    // `position_embd` (gguf package, gguf.constants.TENSOR_NAMES[MODEL_TENSOR.POS_EMBD]).
+    let doc = scan_json(fixture("scan/names/gpt2-family.gguf").to_str().unwrap());
+    assert_eq!(
+        tables(&doc),
+        vec![(
+            "position_embd.weight".to_string(),
+            "learned-absolute".to_string()
+        )],
+        "token_embd, norms and weight matrices are not tables"
+    );
+    let why = table(&doc, "position_embd.weight")["why"].as_str().unwrap();
+    for part in [
+        "`position` + `embd`",
+        "64 rows = gpt2.context_length 64",
+        "width 32",
+    ] {
+        assert!(why.contains(part), "`{part}` missing from why: {why}");
+    }
+}
+
+#[test]
+fn position_encodings_named_tables_are_found_by_name_learned_and_fixed() {
+    let doc = scan_json(fixture("scan/names/speech").to_str().unwrap());
+    let mut got = tables(&doc);
+    got.sort();
+    assert_eq!(
+        got,
+        vec![
+            (
+                "decoder.embed.position_encodings".to_string(),
+                "learned-absolute".to_string()
+            ),
+            (
+                "encoder.embed.position_encodings".to_string(),
+                "fixed-sinusoidal".to_string()
+            ),
+        ]
+    );
+    let enc = table(&doc, "encoder.embed.position_encodings")["why"]
+        .as_str()
+        .unwrap();
+    assert!(enc.contains("`position` + `encodings`"), "{enc}");
+    assert!(!enc.contains("no position word"), "{enc}");
+    assert!(enc.contains("150 rows = max_source_positions 150"), "{enc}");
+    let dec = table(&doc, "decoder.embed.position_encodings")["why"]
+        .as_str()
+        .unwrap();
+    assert!(dec.contains("112 rows = max_target_positions 112"), "{dec}");
+    assert!(dec.contains("width 64 = d_model"), "{dec}");
+}
+
+#[test]
+fn a_numpy_dump_named_after_its_table_is_found() {
+    let doc = scan_json(fixture("scan/names/position_table.npy").to_str().unwrap());
+    assert_eq!(
+        tables(&doc),
+        vec![("position_table".to_string(), "learned-absolute".to_string())]
+    );
+    assert!(
+        table(&doc, "position_table")["why"]
+            .as_str()
+            .unwrap()
+            .contains("`position` + `table`")
+    );
+}
+
+#[test]
+fn a_half_untrained_table_is_found_by_its_smooth_region_and_the_rows_are_named() {
+    // Rows 256..512 are initial noise (std 0.02): the median neighbour cosine over all
+    // sampled pairs is below the bar, the smooth region of the first half is not.
+    let doc = scan_json(fixture("scan/names/half-noise").to_str().unwrap());
+    assert_eq!(
+        tables(&doc),
+        vec![(
+            "model.lookup.weight".to_string(),
+            "learned-absolute".to_string()
+        )],
+        "the same-shaped noise matrix is not a table"
+    );
+    let why = table(&doc, "model.lookup.weight")["why"].as_str().unwrap();
+    let rows = why
+        .split("over rows ")
+        .nth(1)
+        .unwrap_or_else(|| panic!("rows used not named: {why}"));
+    let (a, b) = rows.split_once("..").unwrap();
+    let a: usize = a.parse().unwrap();
+    let b: usize = b
+        .split(|c: char| !c.is_ascii_digit())
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap();
+    assert!(a < 8 && b <= 300 && b > 128, "region {a}..{b} in: {why}");
+    assert!(why.contains("no position word"), "{why}");
+}
+
+#[test]
+fn a_position_word_alone_needs_the_config_rows_and_says_so() {
+    // 66 rows = max_position_embeddings 64 + pad_token_id + 1 (the RoBERTa-style offset);
+    // its content is initial noise, so the shape is what decides.
+    let doc = scan_json(fixture("scan/names/config-rows").to_str().unwrap());
+    assert_eq!(
+        tables(&doc),
+        vec![(
+            "decoder.positions".to_string(),
+            "learned-absolute".to_string()
+        )]
+    );
+    let why = table(&doc, "decoder.positions")["why"].as_str().unwrap();
+    assert!(
+        why.contains("66 rows = max_position_embeddings 64 + pad_token_id + 1"),
+        "{why}"
+    );
+    assert!(why.contains("width 32 = hidden_size"), "{why}");
+}
+
+#[test]
+fn optimizer_moments_of_a_training_checkpoint_are_never_tables() {
+    // fixtures/formats/torch_training.ckpt: 20 real Adam steps (generate_training.py);
+    // exp_avg / exp_avg_sq have the shapes of wpe and wte.
+    let doc = scan_json(fixture("formats/torch_training.ckpt").to_str().unwrap());
+    assert_eq!(
+        tables(&doc),
+        vec![(
+            "state_dict.wpe.weight".to_string(),
+            "learned-absolute".to_string()
+        )]
+    );
+    let audit = posaudit(&[
+        "audit",
+        fixture("formats/torch_training.ckpt").to_str().unwrap(),
+        "--json",
+    ]);
+    assert!(audit.code == 0 || audit.code == 1, "{}", audit.stderr);
+    assert!(!audit.stdout.contains("exp_avg"), "no moment in the audit");
+}
+
+#[test]
+fn forcing_a_table_still_works_on_a_weight_of_another_role() {
+    let run = posaudit(&[
+        "scan",
+        fixture("scan/names/gpt2-family.gguf").to_str().unwrap(),
+        "--table",
+        "token_embd.weight",
+        "--json",
+    ]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let doc: Value = serde_json::from_str(&run.stdout).unwrap();
+    let t = table(&doc, "token_embd.weight");
+    assert!(
+        t["why"]
+            .as_str()
+            .unwrap()
+            .starts_with("forced with --table")
+    );
+    assert_eq!(tables(&doc).len(), 2);
+}

@@ -174,5 +174,10 @@ pub(crate) fn member_prefix(
             })?;
             Ok(out)
         }
+        // Archive members are never varint runs (those are ONNX typed fields).
+        Storage::Varints { .. } => Err(CheckpointError::invalid(
+            &file.path,
+            "unexpected storage for an archive member",
+        )),
     }
 }

@@ -102,8 +102,14 @@ pub fn escape_controls(text: &str) -> String {
 /// Elements the tensor's storage really holds (its byte length over the element size;
 /// for a compressed member, its declared inflated size).
 fn stored_elements(t: &TensorInfo) -> usize {
-    let size = t.dtype.size().unwrap_or(1).max(1);
+    let Some(size) = t.dtype.size() else {
+        // Quantized blocks: the reader checked at open that the blocks cover the tensor.
+        return t.numel();
+    };
+    let size = size.max(1);
     match &t.storage {
+        // Typed ONNX fields: the element count was checked against the tensor at open.
+        Storage::Varints { .. } => t.numel(),
         Storage::Mapped { len, .. } => len / size,
         Storage::ZipMember {
             size: declared,
@@ -124,7 +130,7 @@ fn stored_elements(t: &TensorInfo) -> usize {
 /// Checked before anything is allocated or inflated, by the reader and by
 /// [`AnalysisBudget::admit`] alike, so a tensor the detector admits can be read.
 pub(crate) fn tensor_problem(t: &TensorInfo, elements: usize) -> Option<String> {
-    t.dtype.size()?;
+    t.dtype.storage_len(1)?;
     let n = t.numel();
     if n > MAX_TABLE_ELEMENTS || elements > MAX_TABLE_ELEMENTS {
         return Some(format!(
@@ -202,6 +208,7 @@ impl AnalysisBudget {
         let key = match &t.storage {
             Storage::Mapped { offset, len } => StorageKey::Mapped(t.file, *offset, *len),
             Storage::ZipMember { member, .. } => StorageKey::Member(t.file, member.clone()),
+            Storage::Varints { offset, len, .. } => StorageKey::Mapped(t.file, *offset, *len),
         };
         let stored = stored_elements(t);
         let cap = stored

@@ -17,6 +17,7 @@ pub mod gguf;
 pub mod limits;
 pub mod memory;
 pub mod numpy;
+pub mod onnx;
 pub mod pickle;
 pub mod pytorch;
 pub mod safetensors;
@@ -49,6 +50,8 @@ pub enum Format {
     Gguf,
     /// Tables handed over in memory (the Python package's arrays), see [`memory`].
     Memory,
+    /// ONNX model (`.onnx`, with external data files).
+    Onnx,
 }
 
 impl std::fmt::Display for Format {
@@ -59,6 +62,7 @@ impl std::fmt::Display for Format {
             Format::Numpy => "numpy",
             Format::Gguf => "gguf",
             Format::Memory => "memory",
+            Format::Onnx => "onnx",
         })
     }
 }
@@ -134,6 +138,16 @@ pub enum Storage {
         size: u64,
         /// The member's compressed size (bytes really in the file).
         compressed: u64,
+    },
+    /// Packed protobuf varints (ONNX typed fields), decoded when read into `width`-byte
+    /// little-endian integers.
+    Varints {
+        /// Byte offset of the packed run in the file.
+        offset: usize,
+        /// Length of the run in bytes.
+        len: usize,
+        /// Bytes per decoded element.
+        width: usize,
     },
 }
 
@@ -455,6 +469,7 @@ pub fn sniff(path: &Path, bytes: &[u8]) -> Option<Format> {
     match ext.as_str() {
         "safetensors" => Some(Format::Safetensors),
         "gguf" => Some(Format::Gguf),
+        "onnx" => Some(Format::Onnx),
         "npy" | "npz" => Some(Format::Numpy),
         "bin" | "pt" | "pth" | "ckpt" => Some(Format::Pytorch),
         _ => None,
@@ -554,6 +569,9 @@ impl Checkpoint {
                             ),
                         )
                     })
+            }
+            Storage::Varints { offset, len, width } => {
+                onnx::decode_varints(file, *offset, *len, *width).map(Cow::Owned)
             }
             Storage::ZipMember { member, skip, .. } => {
                 // Inflate only the bytes the tensor can touch, never the declared size.
@@ -782,6 +800,7 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
         Some(Format::Pytorch) => pytorch::open_files(vec![file]),
         Some(Format::Numpy) => numpy::open(path, file),
         Some(Format::Gguf) => gguf::open(file),
+        Some(Format::Onnx) => onnx::open(file),
         None | Some(Format::Memory) => {
             // An unknown extension: try safetensors' header as the last resort, since it
             // has no magic number.
@@ -835,6 +854,9 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
     if single.is_file() {
         return open_file(&single);
     }
+    if dir.join("model.onnx").is_file() {
+        return open_file(&dir.join("model.onnx"));
+    }
     // Otherwise exactly one file of another format; several are ambiguous.
     let others: Vec<&PathBuf> = names
         .iter()
@@ -845,7 +867,7 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
                 .unwrap_or_default();
             matches!(
                 ext.as_str(),
-                "bin" | "pt" | "pth" | "ckpt" | "npy" | "npz" | "gguf"
+                "bin" | "pt" | "pth" | "ckpt" | "npy" | "npz" | "gguf" | "onnx"
             )
         })
         .collect();

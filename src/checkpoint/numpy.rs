@@ -439,6 +439,10 @@ fn open_npz(file: SourceFile) -> Result<Opened, CheckpointError> {
                 size: *size,
                 compressed: *compressed,
             },
+            // Archive members are never varint runs (those are ONNX typed fields).
+            (Storage::Varints { .. }, _, _) => {
+                return Err(CheckpointError::invalid(&file.path, "unexpected storage"));
+            }
         };
         tensors.push(tensor(name.to_string(), &h, 0, storage));
     }

