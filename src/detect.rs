@@ -63,6 +63,16 @@ pub enum Kind {
 }
 
 impl Kind {
+    /// Every kind, in the order the documentation lists them.
+    pub const ALL: [Kind; 6] = [
+        Kind::LearnedAbsolute,
+        Kind::FixedSinusoidal,
+        Kind::LearnedGrid2d,
+        Kind::RelativeBias,
+        Kind::RotaryFrequencies,
+        Kind::PositionIds,
+    ];
+
     /// The contract string of the kind.
     pub fn as_str(self) -> &'static str {
         match self {

@@ -57,14 +57,7 @@ __all__ = [
 __version__: str = _native.__version__
 
 #: The kinds of table (contract strings), for ``audit_array(kind=...)``.
-KINDS: Tuple[str, ...] = (
-    "learned-absolute",
-    "fixed-sinusoidal",
-    "learned-grid-2d",
-    "relative-bias",
-    "rotary-frequencies",
-    "position-ids",
-)
+KINDS: Tuple[str, ...] = tuple(_native.KINDS)
 
 _LEVELS = ("info", "warning", "error")
 

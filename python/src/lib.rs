@@ -51,11 +51,28 @@ fn lib_error(e: posaudit::Error) -> String {
     e.one_line()
 }
 
-/// Writes an `--out` folder as the command line does: the rendered files, then
-/// `report.json`, each atomically.
-fn write_out(dir: &Path, mut files: Vec<(String, Vec<u8>)>, json: &str) -> Result<(), String> {
-    files.push(("report.json".into(), json.as_bytes().to_vec()));
-    write_report(dir, &files).map(|_| ()).map_err(lib_error)
+/// Checks an `--out` folder before any work, as the command line does.
+fn prepare(out: Option<&Path>) -> Result<(), String> {
+    match out {
+        Some(dir) => prepare_dir(dir).map_err(lib_error),
+        None => Ok(()),
+    }
+}
+
+/// The document's JSON text; with an `--out` folder, also writes it there as the command
+/// line does: the rendered `files`, then `report.json`, each atomically.
+fn finish<R: serde::Serialize>(
+    report: &R,
+    out: Option<&Path>,
+    files: impl FnOnce(&R) -> Vec<(String, Vec<u8>)>,
+) -> Result<String, String> {
+    let json = json_text(report).map_err(lib_error)?;
+    if let Some(dir) = out {
+        let mut files = files(report);
+        files.push(("report.json".into(), json.as_bytes().to_vec()));
+        write_report(dir, &files).map_err(lib_error)?;
+    }
+    Ok(json)
 }
 
 /// Runs the command line with `argv` (program name first) and returns its exit code.
@@ -86,20 +103,14 @@ fn audit_json(
     out: Option<PathBuf>,
 ) -> PyResult<String> {
     py.detach(move || {
-        if let Some(dir) = &out {
-            prepare_dir(dir).map_err(lib_error)?;
-        }
+        prepare(out.as_deref())?;
         let options = audit::AuditOptions {
             path,
             tables,
             threads: 1,
         };
         let report = audit::run(&options, &mut |_, _, _| {}).map_err(lib_error)?;
-        let json = json_text(&report).map_err(lib_error)?;
-        if let Some(dir) = &out {
-            write_out(dir, posaudit::report::audit_files(&report), &json)?;
-        }
-        Ok(json)
+        finish(&report, out.as_deref(), posaudit::report::audit_files)
     })
     .map_err(input_error)
 }
@@ -114,15 +125,9 @@ fn compare_json(
     out: Option<PathBuf>,
 ) -> PyResult<String> {
     py.detach(move || {
-        if let Some(dir) = &out {
-            prepare_dir(dir).map_err(lib_error)?;
-        }
+        prepare(out.as_deref())?;
         let report = compare::run(&compare::CompareOptions { paths, tables }).map_err(lib_error)?;
-        let json = json_text(&report).map_err(lib_error)?;
-        if let Some(dir) = &out {
-            write_out(dir, posaudit::report::compare_files(&report), &json)?;
-        }
-        Ok(json)
+        finish(&report, out.as_deref(), posaudit::report::compare_files)
     })
     .map_err(input_error)
 }
@@ -162,24 +167,15 @@ type TableSpec = (
     bool,
 );
 
-const KINDS: [Kind; 6] = [
-    Kind::LearnedAbsolute,
-    Kind::FixedSinusoidal,
-    Kind::LearnedGrid2d,
-    Kind::RelativeBias,
-    Kind::RotaryFrequencies,
-    Kind::PositionIds,
-];
-
 fn parse_kind(kind: &str) -> Result<Kind, String> {
-    KINDS
+    Kind::ALL
         .iter()
         .copied()
         .find(|k| k.as_str() == kind)
         .ok_or_else(|| {
             format!(
                 "unknown kind `{kind}`; expected one of {}",
-                KINDS.map(|k| k.as_str()).join(", ")
+                Kind::ALL.map(|k| k.as_str()).join(", ")
             )
         })
 }
@@ -249,18 +245,12 @@ fn audit_memory_json(
     py.detach(move || {
         posaudit::linalg::set_threads(1);
         let config = parse_config(config_json.as_deref())?;
-        if let Some(dir) = &out {
-            prepare_dir(dir).map_err(lib_error)?;
-        }
+        prepare(out.as_deref())?;
         let ckpt = memory_checkpoint(&label, &tables, config)?;
         let names: Vec<String> = tables.iter().map(|t| t.0.clone()).collect();
         let report = audit::audit_opened(&ckpt, &names, &mut |_, _, _| {}).map_err(lib_error)?;
         drop(ckpt);
-        let json = json_text(&report).map_err(lib_error)?;
-        if let Some(dir) = &out {
-            write_out(dir, posaudit::report::audit_files(&report), &json)?;
-        }
-        Ok(json)
+        finish(&report, out.as_deref(), posaudit::report::audit_files)
     })
     .map_err(input_error)
 }
@@ -281,9 +271,7 @@ fn compare_memory_json(
             return Err(format!("{} labels for {} steps", labels.len(), steps.len()));
         }
         let config = parse_config(config_json.as_deref())?;
-        if let Some(dir) = &out {
-            prepare_dir(dir).map_err(lib_error)?;
-        }
+        prepare(out.as_deref())?;
         let paths: Vec<PathBuf> = labels.iter().map(PathBuf::from).collect();
         let open = |path: &Path| -> posaudit::Result<Checkpoint> {
             let index = paths.iter().position(|p| p == path).ok_or_else(|| {
@@ -304,11 +292,7 @@ fn compare_memory_json(
             tables: names,
         };
         let report = compare::run_with(&options, &open).map_err(lib_error)?;
-        let json = json_text(&report).map_err(lib_error)?;
-        if let Some(dir) = &out {
-            write_out(dir, posaudit::report::compare_files(&report), &json)?;
-        }
-        Ok(json)
+        finish(&report, out.as_deref(), posaudit::report::compare_files)
     })
     .map_err(input_error)
 }
@@ -324,5 +308,6 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(audit_memory_json, m)?)?;
     m.add_function(wrap_pyfunction!(compare_memory_json, m)?)?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    m.add("KINDS", Kind::ALL.map(|k| k.as_str()).to_vec())?;
     Ok(())
 }
