@@ -3,6 +3,7 @@
 //! that goes straight into the report model.
 
 pub mod alibi;
+pub mod decay;
 pub mod grid;
 pub mod hygiene;
 mod lagged;
