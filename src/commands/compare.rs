@@ -24,8 +24,8 @@ use ndarray::{Array2, s};
 use crate::analyze::stats::median;
 use crate::checkpoint::{Checkpoint, Dtype, TensorInfo};
 use crate::compare::{
-    CompareError, DEFAULT_MEDIAN_FRACTION, StepOptions, Timeline, common_leading_rows,
-    compare_step, estimate_noise, rounding_tolerance, similarity,
+    CompareError, DEFAULT_MEDIAN_FRACTION, StepOptions, Timeline, UnchangedBounds,
+    common_leading_rows, compare_step, decay_unit_roundoff, estimate_noise, similarity,
 };
 use crate::detect::{self, Detected, Kind};
 use crate::error::{Error, Result};
@@ -322,7 +322,13 @@ fn visit(
         if let Some(tl) = &mut t.timeline {
             let pushed = match (&step.noise, step.per_row) {
                 (Some(noise), true) => tl
-                    .push_step(step.from, step.to, &step.change, noise.value)
+                    .push_step_with_unchanged(
+                        step.from,
+                        step.to,
+                        &step.change,
+                        noise.value,
+                        &step.unchanged,
+                    )
                     .map_err(|e| e.to_string()),
                 _ => Err(format!(
                     "step {} → {} has no per-row change",
@@ -384,17 +390,28 @@ fn finish(mut t: Tracked, n_ckpt: usize, options: &StepOptions) -> TableComparis
     t.entry
 }
 
-/// The coarser storage type of two tables and the unchanged tolerance it implies.
-fn tolerance(a: &Dtype, b: &Dtype) -> (f64, String) {
+/// The unchanged test's bounds for the coarser storage type of two tables.
+struct Tolerance {
+    bounds: UnchangedBounds,
+    unit: f64,
+    dtype: String,
+}
+
+/// The coarser storage type of two tables and the unchanged tolerance it implies
+/// (storage rounding plus accumulated weight-decay rounding, see
+/// [`crate::compare::unchanged`]).
+fn tolerance(a: &Dtype, b: &Dtype) -> Tolerance {
     let coarser = if mantissa_bits(a) <= mantissa_bits(b) {
         a
     } else {
         b
     };
-    (
-        rounding_tolerance(mantissa_bits(coarser)),
-        coarser.to_string(),
-    )
+    let m = mantissa_bits(coarser);
+    Tolerance {
+        bounds: UnchangedBounds::storage(m),
+        unit: decay_unit_roundoff(m),
+        dtype: coarser.to_string(),
+    }
 }
 
 fn empty_step(a: &Held, b: &Held, rows: usize) -> StepEntry {
@@ -419,6 +436,8 @@ fn empty_step(a: &Held, b: &Held, rows: usize) -> StepEntry {
         most_moved: Vec::new(),
         unchanged_detail: Vec::new(),
         unchanged_tolerance: None,
+        unchanged_absolute: None,
+        decay_unit_roundoff: None,
         tolerance_dtype: None,
         noise: None,
         similarity: None,
@@ -468,9 +487,9 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
             &where_,
         ));
     }
-    let (tol, tol_dtype) = tolerance(&a.dtype, &b.dtype);
+    let tol = tolerance(&a.dtype, &b.dtype);
     let step_options = StepOptions {
-        unchanged_tolerance: tol,
+        unchanged: tol.bounds,
         ..options.clone()
     };
     // Widths are equal here, so this cannot fail.
@@ -498,11 +517,13 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
             step.cosine = sc.cosine;
             step.most_moved = sc.most_moved;
             step.unchanged_detail = sc.unchanged_detail;
-            step.unchanged_tolerance = Some(tol);
-            step.tolerance_dtype = Some(tol_dtype.clone());
+            step.unchanged_tolerance = Some(tol.bounds.relative);
+            step.unchanged_absolute = Some(tol.bounds.absolute);
+            step.decay_unit_roundoff = Some(tol.unit);
+            step.tolerance_dtype = Some(tol.dtype.clone());
             step.similarity = sc.similarity;
             step.similarity_unavailable = sc.similarity_unavailable;
-            findings.extend(verdicts::unchanged(&step, &tol_dtype, &where_));
+            findings.extend(verdicts::unchanged(&step, &tol.dtype, &where_));
         }
         Err(e) => {
             let reason = e.to_string();

@@ -36,7 +36,10 @@ pub use similarity::{
 pub use timeline::{
     DEFAULT_MEDIAN_FRACTION, NoiseLevel, NoiseMethod, Timeline, TimelineSummary, estimate_noise,
 };
-pub use unchanged::{UnchangedRange, range_pairs, rounding_tolerance, unchanged_ranges};
+pub use unchanged::{
+    DECAY_ROUNDING_STEPS, UnchangedBounds, UnchangedRange, decay_tolerance, decay_unit_roundoff,
+    range_pairs, rounding_tolerance, subnormal_floor, unchanged_ranges,
+};
 
 use crate::linalg::LinalgError;
 
@@ -147,9 +150,9 @@ pub fn common_leading_rows<'a>(
 /// Settings for [`compare_step`].
 #[derive(Debug, Clone, Serialize)]
 pub struct StepOptions {
-    /// Relative per-row residual below which a row counts as unchanged up to scale; see
-    /// [`rounding_tolerance`] for values per storage dtype.
-    pub unchanged_tolerance: f64,
+    /// Bounds of the unchanged test ([`UnchangedBounds::storage`] of the storage dtype;
+    /// see [`decay_tolerance`]).
+    pub unchanged: UnchangedBounds,
     /// How many of the most-moved rows to list.
     pub most_moved: usize,
     /// Settings of the rotation-invariant similarity.
@@ -160,7 +163,7 @@ impl Default for StepOptions {
     /// Tolerance for F32 storage, ten most-moved rows, default similarity settings.
     fn default() -> Self {
         StepOptions {
-            unchanged_tolerance: rounding_tolerance(23),
+            unchanged: UnchangedBounds::storage(23),
             most_moved: 10,
             similarity: SimilarityOptions::default(),
         }
@@ -194,8 +197,10 @@ pub struct StepComparison {
     pub most_moved: Vec<MovedRow>,
     /// The unchanged ranges with their scale factor and residual.
     pub unchanged_detail: Vec<UnchangedRange>,
-    /// The relative tolerance used for `unchanged`.
+    /// The relative elementwise tolerance used for `unchanged`.
     pub unchanged_tolerance: f64,
+    /// The absolute part of the elementwise bound used for `unchanged`.
+    pub unchanged_absolute: f64,
     /// Full similarity record (angles, k and why, CKA, Procrustes, chance levels).
     pub similarity: Option<Similarity>,
     /// Why `similarity` is null, when it is.
@@ -221,7 +226,7 @@ pub fn compare_step(
 ) -> Result<StepComparison, CompareError> {
     check_pair(a, b)?;
     let rows = row_change(a, b)?;
-    let detail = unchanged_ranges(a, b, options.unchanged_tolerance)?;
+    let detail = unchanged_ranges(a, b, &options.unchanged)?;
     let moved = most_moved(&rows.change, &rows.relative_change, options.most_moved);
     let (sim, why) = match similarity(a, b, &options.similarity) {
         Ok(s) => (Some(s), None),
@@ -238,7 +243,8 @@ pub fn compare_step(
         cosine: rows.cosine,
         most_moved: moved,
         unchanged_detail: detail,
-        unchanged_tolerance: options.unchanged_tolerance,
+        unchanged_tolerance: options.unchanged.relative,
+        unchanged_absolute: options.unchanged.absolute,
         similarity: sim,
         similarity_unavailable: why,
     })

@@ -169,6 +169,11 @@ pub struct TimelineSummary {
     pub still_moving: Vec<[usize; 2]>,
     /// Positions never above noise in any step, as ranges.
     pub never_moved: Vec<[usize; 2]>,
+    /// Positions inside the step's unchanged ranges (bit-identical, or the earlier row
+    /// times the common weight-decay factor) in every recorded step: no gradient reached
+    /// them anywhere in the compared window. They are never "moved" nor "converged".
+    /// Empty when a step was recorded without its unchanged ranges.
+    pub unchanged_throughout: Vec<[usize; 2]>,
     /// Trailing quiet steps needed to call a position converged.
     pub quiet_window: usize,
     /// Downsampled change matrix.
@@ -185,6 +190,8 @@ pub struct Timeline {
     first_moved: Vec<Option<usize>>,
     quiet_streak: Vec<u32>,
     moved_last: Vec<bool>,
+    unchanged_all: Vec<bool>,
+    unchanged_known: bool,
     heat_mean: Vec<Vec<f64>>,
     heat_max: Vec<Vec<f64>>,
 }
@@ -222,6 +229,8 @@ impl Timeline {
             first_moved: Vec::new(),
             quiet_streak: Vec::new(),
             moved_last: Vec::new(),
+            unchanged_all: Vec::new(),
+            unchanged_known: true,
             heat_mean: Vec::new(),
             heat_max: Vec::new(),
         }
@@ -242,6 +251,39 @@ impl Timeline {
         change_per_row: &[f64],
         noise_level: f64,
     ) -> Result<(), CompareError> {
+        self.record(from_idx, to_idx, change_per_row, noise_level, None)
+    }
+
+    /// [`Timeline::push_step`] with the step's unchanged ranges (half-open, as
+    /// [`super::unchanged_ranges`] finds them): rows inside them did not receive a
+    /// gradient in this step, so they count as quiet whatever their change (weight decay
+    /// alone moves a row by (1 − c)·‖a_i‖), and rows inside them in every step are
+    /// reported as `unchanged_throughout`. Parts beyond the table are ignored.
+    pub fn push_step_with_unchanged(
+        &mut self,
+        from_idx: usize,
+        to_idx: usize,
+        change_per_row: &[f64],
+        noise_level: f64,
+        unchanged: &[[usize; 2]],
+    ) -> Result<(), CompareError> {
+        self.record(
+            from_idx,
+            to_idx,
+            change_per_row,
+            noise_level,
+            Some(unchanged),
+        )
+    }
+
+    fn record(
+        &mut self,
+        from_idx: usize,
+        to_idx: usize,
+        change_per_row: &[f64],
+        noise_level: f64,
+        unchanged: Option<&[[usize; 2]]>,
+    ) -> Result<(), CompareError> {
         check_change(change_per_row)?;
         if !(noise_level.is_finite() && noise_level >= 0.0) {
             return Err(CompareError::InvalidOption(format!(
@@ -256,15 +298,28 @@ impl Timeline {
             self.first_moved = vec![None; n];
             self.quiet_streak = vec![0; n];
             self.moved_last = vec![false; n];
+            self.unchanged_all = vec![true; n];
         } else if n != self.positions {
             return Err(CompareError::LengthMismatch {
                 expected: self.positions,
                 got: n,
             });
         }
+        let mut quiet = vec![false; n];
+        match unchanged {
+            Some(ranges) => {
+                for &[s, e] in ranges {
+                    for q in &mut quiet[s.min(n)..e.min(n)] {
+                        *q = true;
+                    }
+                }
+            }
+            None => self.unchanged_known = false,
+        }
         let mut moved_count = 0;
         for (i, &c) in change_per_row.iter().enumerate() {
-            let moved = c > noise_level;
+            self.unchanged_all[i] &= quiet[i];
+            let moved = c > noise_level && !quiet[i];
             self.moved_last[i] = moved;
             if moved {
                 moved_count += 1;
@@ -333,6 +388,11 @@ impl Timeline {
             ),
             still_moving: ranges_where(self.moved_last.iter().copied()),
             never_moved: ranges_where(self.first_moved.iter().map(Option::is_none)),
+            unchanged_throughout: if self.unchanged_known {
+                ranges_where(self.unchanged_all.iter().copied())
+            } else {
+                Vec::new()
+            },
             quiet_window: self.quiet_window,
             heatmap: Heatmap {
                 bins: self.bins.clone(),
@@ -359,6 +419,30 @@ mod tests {
         assert_eq!((n.value, n.rows_used), (1.0, 2));
         assert!(estimate_noise(&[], &[], 0.05).is_err());
         assert!(estimate_noise(&[f64::NAN], &[], 0.05).is_err());
+    }
+
+    #[test]
+    fn rows_unchanged_in_every_step_are_quiet_whatever_their_change() {
+        // Invented 6-position run, 3 steps: rows 4..6 are decay-only every step, and
+        // their change (0.5, from a large norm) exceeds the noise level 0.1; rows 2..4
+        // are decay-only in the first two steps and trained in the last.
+        let mut t = Timeline::new(1);
+        let c = [1.0, 1.0, 0.05, 0.05, 0.5, 0.5];
+        t.push_step_with_unchanged(0, 1, &c, 0.1, &[[2, 6]])
+            .unwrap();
+        t.push_step_with_unchanged(1, 2, &c, 0.1, &[[2, 6]])
+            .unwrap();
+        let c = [1.0, 1.0, 1.0, 1.0, 0.5, 0.5];
+        t.push_step_with_unchanged(2, 3, &c, 0.1, &[[4, 6], [9, 12]])
+            .unwrap();
+        let s = t.summary();
+        assert_eq!(s.unchanged_throughout, vec![[4, 6]]);
+        assert_eq!(s.never_moved, vec![[4, 6]]);
+        assert!(s.converged.is_empty(), "{:?}", s.converged);
+        assert_eq!(s.still_moving, vec![[0, 4]]);
+        // A step without unchanged information: nothing is known to be unchanged throughout.
+        t.push_step(3, 4, &c, 0.1).unwrap();
+        assert!(t.summary().unchanged_throughout.is_empty());
     }
 
     #[test]

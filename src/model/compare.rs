@@ -113,8 +113,14 @@ pub struct StepEntry {
     pub most_moved: Vec<MovedRow>,
     /// Each unchanged range with its scale factor and residual.
     pub unchanged_detail: Vec<UnchangedRange>,
-    /// Relative tolerance of the unchanged test.
+    /// Relative elementwise tolerance of the unchanged test: storage rounding plus
+    /// 512 rounding steps of the weight-decay arithmetic.
     pub unchanged_tolerance: Option<f64>,
+    /// Absolute part of the elementwise bound (smallest subnormal of the storage type).
+    pub unchanged_absolute: Option<f64>,
+    /// Unit roundoff of the arithmetic that applied weight decay (2^-24 for float32):
+    /// the unit of the "rounding steps" the findings quote.
+    pub decay_unit_roundoff: Option<f64>,
     /// The storage type the tolerance comes from (the coarser of the two).
     pub tolerance_dtype: Option<String>,
     /// Change below which a row counts as not having moved in this step.

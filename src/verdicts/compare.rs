@@ -8,7 +8,7 @@ use crate::text::range;
 /// Most `unchanged-rows` findings per step; further ranges are summed up in one more.
 pub const MAX_RANGE_FINDINGS: usize = 4;
 
-const UNCHANGED_LIMITS: &str = "Identical up to a scale means never updated, only decayed: no gradient reached these rows between the two checkpoints, and decoupled weight decay alone shrank them by the common factor (exactly 1 means untouched or frozen). It says nothing about whether they were trained before the earlier checkpoint.";
+const UNCHANGED_LIMITS: &str = "Identical up to a scale means never updated, only decayed: no gradient reached these rows between the two checkpoints, and decoupled weight decay alone shrank them by the common factor (exactly 1 means untouched or frozen). It says nothing about whether they were trained before the earlier checkpoint. The bound allows 512 float32 rounding steps per entry, what roughly 40 000 decay steps accumulate as random-walk rounding; decay-only rows of checkpoints much further apart, or of a run that applies the decay in bf16/f16, can exceed it and be reported as changed.";
 
 fn list(v: &[usize]) -> String {
     v.iter()
@@ -87,6 +87,7 @@ pub fn non_finite(
 pub fn unchanged(step: &StepEntry, dtype: &str, where_: &str) -> Vec<CompareFinding> {
     let mut out = Vec::new();
     let tol = step.unchanged_tolerance.unwrap_or(0.0);
+    let unit = step.decay_unit_roundoff.unwrap_or(2f64.powi(-24));
     for r in step.unchanged_detail.iter().take(MAX_RANGE_FINDINGS) {
         let rows = r.end - r.start;
         let message = if r.bit_identical {
@@ -96,7 +97,7 @@ pub fn unchanged(step: &StepEntry, dtype: &str, where_: &str) -> Vec<CompareFind
             )
         } else {
             format!(
-                "Rows {} ({rows} rows) are identical between {where_} up to one common scale factor ×{:.6}.",
+                "Rows {} ({rows} rows) are unchanged up to weight decay between {where_}: the earlier rows times one common scale factor ×{:.6}, which is what weight decay alone does to rows that got no gradient.",
                 range([r.start, r.end]),
                 r.scale
             )
@@ -105,13 +106,31 @@ pub fn unchanged(step: &StepEntry, dtype: &str, where_: &str) -> Vec<CompareFind
             .iter()
             .copied()
             .fold(0.0, f64::max);
+        let zero = if r.zero_rows > 0 {
+            format!(
+                "; {} of these rows are zero in both checkpoints (they fit any factor)",
+                r.zero_rows
+            )
+        } else {
+            String::new()
+        };
+        let evidence = if r.bit_identical {
+            format!(
+                "every entry bit-identical; largest L2 change among these rows {largest:.3e}{zero}"
+            )
+        } else {
+            format!(
+                "scale factor {:.9}; entries deviate from it by at most {:.1} (rms {:.1}) rounding steps of the decay arithmetic (unit {unit:.3e}), bound {tol:.2e} relative = {dtype} storage rounding plus 512 such steps; largest relative row residual {:.2e}; largest L2 change among these rows {largest:.3e}{zero}",
+                r.scale,
+                r.max_deviation / unit,
+                r.rms_deviation / unit,
+                r.residual
+            )
+        };
         out.push(CompareFinding {
             finding: Finding::info(FindingCode::UnchangedRows, message)
                 .rows([r.start, r.end])
-                .evidence(format!(
-                    "scale factor {:.9}, largest relative row residual {:.2e} ≤ tolerance {tol:.2e} ({dtype} storage); largest L2 change among these rows {largest:.3e}",
-                    r.scale, r.residual
-                ))
+                .evidence(evidence)
                 .limits(UNCHANGED_LIMITS),
             step: Some([step.from, step.to]),
         });

@@ -130,7 +130,10 @@ pub fn render(report: &CompareReport) -> String {
                         ranges(&s.unchanged, LISTED)
                     );
                     if let (Some(tol), Some(dt)) = (s.unchanged_tolerance, &s.tolerance_dtype) {
-                        let _ = write!(md, " (tolerance {tol:.2e}, from {dt} storage)");
+                        let _ = write!(
+                            md,
+                            " (elementwise tolerance {tol:.2e}: {dt} storage rounding plus accumulated weight-decay rounding)"
+                        );
                     }
                     md.push_str(". ");
                 }
@@ -172,6 +175,13 @@ pub fn render(report: &CompareReport) -> String {
                 ranges(&tl.still_moving, LISTED),
                 ranges(&tl.never_moved, LISTED)
             );
+            if !tl.unchanged_throughout.is_empty() {
+                let _ = writeln!(
+                    md,
+                    "Unchanged in every step (bit-identical or only shrunk by weight decay, so no gradient reached them between the first and the last checkpoint): {}.\n",
+                    ranges(&tl.unchanged_throughout, LISTED)
+                );
+            }
         }
         if let Some(why) = &t.timeline_unavailable {
             let _ = writeln!(md, "Timeline unavailable: {}.\n", md_escape(why));
@@ -222,6 +232,8 @@ mod tests {
             most_moved: vec![],
             unchanged_detail: vec![],
             unchanged_tolerance: None,
+            unchanged_absolute: None,
+            decay_unit_roundoff: None,
             tolerance_dtype: None,
             noise: None,
             similarity: None,
