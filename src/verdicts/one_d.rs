@@ -37,7 +37,7 @@ pub fn reserved_rows(config: Option<&ConfigHints>) -> usize {
         Some("opt" | "bart" | "mbart" | "blenderbot" | "marian-learned") => 2,
         Some(
             "roberta" | "xlm-roberta" | "camembert" | "longformer" | "xlm-roberta-xl"
-            | "data2vec-text",
+            | "data2vec-text" | "mpnet",
         ) => c
             .pad_token_id
             .as_ref()
@@ -216,7 +216,34 @@ fn learned(
     config: Option<&ConfigHints>,
 ) {
     let n_all = audit.positions.unwrap_or(table.nrows());
-    let reserved = reserved_rows(config);
+    // Rows before the first indexed position: known from the model family, or inferred
+    // when the row at pad_token_id (0..3) is the all-zero padding row of a table whose
+    // positions start after it (padding_idx + 1, the RoBERTa-style rule).
+    let family_reserved = reserved_rows(config);
+    let pad = config
+        .and_then(|c| c.pad_token_id.as_ref())
+        .and_then(|p| usize::try_from(p.value).ok());
+    let inferred = family_reserved == 0
+        && pad.is_some_and(|p| {
+            p <= 3 && p + 1 < n_all && prof.hygiene.zero_rows.iter().any(|z| z[0] <= p && p < z[1])
+        });
+    let reserved = if inferred {
+        pad.unwrap_or(0) + 1
+    } else {
+        family_reserved
+    };
+    let offset_source = if inferred {
+        format!(
+            "inferred: row {} is the all-zero padding row of pad_token_id {}, so positions start at row {reserved}",
+            pad.unwrap_or(0),
+            pad.unwrap_or(0)
+        )
+    } else {
+        format!(
+            "the {} family starts positions at row {reserved}",
+            config.and_then(|c| c.model_type.as_deref()).unwrap_or("?")
+        )
+    };
     let hints = UntrainedHints {
         init_std: config
             .and_then(|c| c.initializer_range.as_ref())
@@ -236,14 +263,32 @@ fn learned(
         [start, end]
     };
     let ev = &report.evidence;
+    let decay_text = match &ev.decay {
+        Some(dk) => format!(
+            "; their RMS is {:.4} x the init std (95 % interval {:.4}..{:.4}, {} rows{}): what decoupled weight decay alone does to rows that never get a gradient",
+            dk.factor,
+            dk.interval[0],
+            dk.interval[1],
+            dk.rows,
+            if dk.rows_agree {
+                ", one common factor"
+            } else {
+                "; the rows do NOT agree on one factor"
+            }
+        ),
+        None => String::new(),
+    };
     let evidence = format!(
-        "untrained rows: median neighbour cosine {} (independent rows give 0 ± {:.3}), median rms {}, median energy in the trained rows' leading subspace {}; trained rows: median neighbour cosine {}, rms {}; init std {}",
+        "untrained rows: median neighbour cosine {} (independent rows give a median of {:.3}: the largest of up to 6 cosines, each ~ N(0, 1/{})), median rms {}, median energy in the trained rows' leading subspace {} (noise gives {}); trained rows: median neighbour cosine {}, rms {}, subspace energy {}; init std {}{decay_text}",
         fmt_opt(ev.untrained.median_neighbour_cosine),
-        1.0 / (ev.dim.max(1) as f64).sqrt(),
+        ev.noise_neighbour_cosine_median,
+        ev.dim,
         fmt_opt(ev.untrained.median_rms),
         fmt_opt(ev.untrained.median_subspace_energy),
+        fmt_opt(ev.subspace_noise_expected),
         fmt_opt(ev.trained.median_neighbour_cosine),
         fmt_opt(ev.trained.median_rms),
+        fmt_opt(ev.trained.median_subspace_energy),
         match (ev.init_std_hint, ev.init_std_estimate) {
             (Some(h), Some(e)) => format!("{h} from config, {e:.4} estimated"),
             (Some(h), None) => format!("{h} from config"),
@@ -251,7 +296,7 @@ fn learned(
             _ => "unknown".into(),
         }
     );
-    let limits = "Evidence from the weights alone: these rows look like initial noise (unrelated to their neighbours, off the trained rows' subspace). Confirm on held-out sequences that reach these positions before re-initialising, truncating or extending from them.";
+    let limits = "Evidence from the weights alone: these rows look like initial noise (one common scale at or below the init std, Gaussian values, off the trained rows' subspace, unrelated to their neighbours). Confirm on held-out sequences that reach these positions before re-initialising, truncating or extending from them.";
     // The fading stretch, in table rows: short untrained runs inside it are the noisy
     // edge of the fade (a weakly trained row crosses the per-row threshold by chance), so
     // they are told in the partially-trained finding instead of as separate warnings.
@@ -271,12 +316,18 @@ fn learned(
             continue;
         }
         audit.findings.push(Finding::new(if in_reserved { Severity::Info } else { Severity::Warning }, if tail { FindingCode::UntrainedTail } else { FindingCode::UntrainedRows }, if tail {
-                format!("Positions {}..{} ({} rows) look untrained: training probably never used sequences longer than {}.", r[0], r[1], r[1] - r[0], r[0].saturating_sub(reserved))
+                if r[0] <= reserved {
+                    format!("No row of the table shows training: rows {}..{} all look like the initialization (a checkpoint saved before training, or a table training never reached).", r[0], r[1])
+                } else if reserved > 0 {
+                    format!("Rows {}..{} ({} rows; token positions {}..{}) look untrained: training probably never used sequences longer than {} tokens (positions start at row {reserved}).", r[0], r[1], r[1] - r[0], r[0] - reserved, r[1] - reserved, r[0] - reserved)
+                } else {
+                    format!("Positions {}..{} ({} rows) look untrained: training probably never used sequences longer than {} tokens.", r[0], r[1], r[1] - r[0], r[0])
+                }
             } else if in_reserved {
                 format!(
-                    "{} looks untrained, as expected: this model family ({}) reserves the first {reserved} rows and never indexes them for real tokens.",
+                    "{} {} untrained, as expected: never indexed, since positions start at row {reserved} ({offset_source}).",
                     range_text(r),
-                    config.and_then(|c| c.model_type.as_deref()).unwrap_or("?")
+                    if r[1] == r[0] + 1 { "looks" } else { "look" }
                 )
             } else {
                 format!(
@@ -332,12 +383,32 @@ fn learned(
             let start = to_table([f, f + 1])[0];
             let tail = n_all - start;
             let in_fade: usize = within_fade.iter().map(|x| x[1] - x[0]).sum();
+            // Never-indexed rows before the first position are told apart, not counted.
+            let in_reserved: usize = report
+                .ranges
+                .iter()
+                .map(|r| to_table(*r))
+                .filter(|r| r[1] <= reserved)
+                .map(|r| r[1] - r[0])
+                .sum();
             let others = report
                 .count
                 .saturating_sub(report.ranges.last().map_or(0, |r| r[1] - r[0]))
-                .saturating_sub(in_fade);
-            let mut text =
-                format!("trained rows 0..{start}, untrained tail from row {start} ({tail} rows)");
+                .saturating_sub(in_fade)
+                .saturating_sub(in_reserved);
+            let first_trained = reserved.min(start);
+            let mut text = if start <= reserved {
+                format!(
+                    "no row shows training: all {tail} rows from row {start} look like the initialization"
+                )
+            } else if reserved > 0 {
+                format!(
+                    "trained rows {first_trained}..{start} ({} token positions; rows before {reserved} are never indexed), untrained tail from row {start} ({tail} rows)",
+                    start - first_trained
+                )
+            } else {
+                format!("trained rows 0..{start}, untrained tail from row {start} ({tail} rows)")
+            };
             if let Some(f) = fading_span {
                 text.push_str(&format!("; partially trained rows {}..{}", f[0], f[1]));
             }
