@@ -126,10 +126,10 @@ fn decoder_tail_starts_where_training_stopped_indexing_at_every_save() {
 
 #[test]
 fn decoder_phase_boundary_of_the_short_then_long_schedule() {
-    // Truth: phase_boundary_row 128 (phase 1 at length 128, phase 2 at 256). The norm
-    // profile of the saved table steps down at rows 128..132: rows 128..131 reached the
-    // phase-1 rows' norm within phase 2's 200 steps (measured: rms 0.053..0.064 against
-    // 0.040..0.044 from row 132), so the weights place the step up to 4 rows late.
+    // Truth: phase_boundary_row 128 (phase 1 at length 128, phase 2 at 256); within 2
+    // rows, as the issue asks. The norm profile of the saved table steps down over rows
+    // 128..132 (rows 128..131 reached the phase-1 rows' norm within phase 2's 200 steps:
+    // rms 0.053..0.064 against 0.040..0.044 from row 132), so this is near the limit.
     let truth = truth();
     let model = &truth["models"]["decoder"];
     let want = model["phase_boundary_row"].as_u64().unwrap() as usize;
@@ -139,7 +139,7 @@ fn decoder_phase_boundary_of_the_short_then_long_schedule() {
     let row = pb["row"]
         .as_u64()
         .unwrap_or_else(|| panic!("no phase boundary: {pb}")) as usize;
-    assert!(row.abs_diff(want) <= 4, "boundary at {row}, truth {want}");
+    assert!(row.abs_diff(want) <= 2, "boundary at {row}, truth {want}");
     assert!(
         t["findings"]
             .as_array()

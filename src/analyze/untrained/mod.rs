@@ -318,8 +318,12 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
         .unzip();
 
     let init = hints.init_std.filter(|s| s.is_finite() && *s > 0.0);
+    // Reserved rows are never indexed by the family's own indexing: their scale is not
+    // evidence of training (a converted checkpoint's config may name another init
+    // than the one that drew them), so only their shape and neighbours are judged.
+    let reserved = hints.reserved_rows.min(n);
     let above_init: Vec<bool> = (0..n)
-        .map(|r| valid[r] && init.is_some_and(|s| rms_of(r) > INIT_SCALE_MAX * s))
+        .map(|r| r >= reserved && valid[r] && init.is_some_and(|s| rms_of(r) > INIT_SCALE_MAX * s))
         .collect();
     let noise_like =
         |r: usize| valid[r] && nan_or_below(neighbour[r], t_cos) && ks[r] <= ks_critical;
@@ -331,7 +335,7 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
     let first_pass: Vec<bool> = (0..n).map(|r| noise_like(r) && !above_init[r]).collect();
     let common = common_log_scale(
         &(0..n)
-            .filter(|&r| first_pass[r])
+            .filter(|&r| first_pass[r] && r >= reserved)
             .map(|r| rms[r].ln())
             .collect::<Vec<_>>(),
         scale_tolerance,
@@ -339,7 +343,11 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
     report.evidence.scale_tolerance = scale_tolerance;
     report.evidence.common_scale = common.map(f64::exp);
     let off_scale: Vec<bool> = (0..n)
-        .map(|r| valid[r] && common.is_some_and(|c| (rms[r].ln() - c).abs() > scale_tolerance))
+        .map(|r| {
+            r >= reserved
+                && valid[r]
+                && common.is_some_and(|c| (rms[r].ln() - c).abs() > scale_tolerance)
+        })
         .collect();
     report.evidence.above_init_scale_rows = ranges_of(
         &(0..n)

@@ -94,6 +94,22 @@ pub(super) fn phase_boundary(
         if !confirmed {
             continue;
         }
+        // The fits leave GAP rows out on each side, so a clean step scores alike at the
+        // splits around it: the row is the middle of the run of splits next to m whose
+        // effect is within 10 % of m's.
+        let near = |q: usize| {
+            step_at(&log_norm, q, w, 1)
+                .is_some_and(|(s, e)| e >= 0.9 * effect && s.signum() == step.signum())
+        };
+        let mut lo = m;
+        while lo > m.saturating_sub(2 * GAP) && near(lo - 1) {
+            lo -= 1;
+        }
+        let mut hi = m;
+        while hi < m + 2 * GAP && near(hi + 1) {
+            hi += 1;
+        }
+        let m = (lo + hi) / 2;
         let (before, after) = fitted_ends(&log_norm, m, w).unwrap_or((f64::NAN, f64::NAN));
         best = Some(PhaseBoundary {
             row: rows[m],
