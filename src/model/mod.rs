@@ -19,6 +19,7 @@ pub mod scan;
 
 use serde::Serialize;
 
+use crate::checkpoint::pickle::StandIn;
 use crate::checkpoint::{Checkpoint, Format};
 
 pub use finding::{Finding, FindingCode, FindingCounts, Severity};
@@ -36,6 +37,11 @@ pub struct CheckpointSummary {
     pub tensors: usize,
     /// Total bytes of the files.
     pub bytes: u64,
+    /// Pickled objects that were read as inert data instead of being rebuilt (a training
+    /// checkpoint's `argparse.Namespace`, paths, a trainer's own classes): each global's
+    /// dotted name, how many objects were built from it, and whether posaudit knows it
+    /// to hold data only (the unknown ones are also warnings). Empty for other formats.
+    pub stand_ins: Vec<StandIn>,
 }
 
 impl CheckpointSummary {
@@ -47,6 +53,31 @@ impl CheckpointSummary {
             files: ckpt.files.len(),
             tensors: ckpt.tensors.len(),
             bytes: ckpt.total_bytes(),
+            stand_ins: ckpt.stand_ins.clone(),
         }
+    }
+
+    /// One sentence listing the stand-ins (`argparse.Namespace ×1, __main__.Config ×1
+    /// (unknown)`), or `None` when there are none: the line both renderers print.
+    pub fn stand_ins_line(&self) -> Option<String> {
+        if self.stand_ins.is_empty() {
+            return None;
+        }
+        let list = self
+            .stand_ins
+            .iter()
+            .map(|s| {
+                format!(
+                    "{} ×{}{}",
+                    s.global,
+                    s.count,
+                    if s.known { "" } else { " (unknown)" }
+                )
+            })
+            .collect::<Vec<_>>()
+            .join(", ");
+        Some(format!(
+            "pickled objects read as inert data (never run): {list}"
+        ))
     }
 }

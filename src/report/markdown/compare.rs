@@ -260,6 +260,7 @@ mod tests {
                         files: 1,
                         tensors: 2,
                         bytes: 100,
+                        stand_ins: vec![],
                     },
                 })
                 .collect(),
