@@ -20,7 +20,7 @@ pub mod scan;
 use serde::Serialize;
 
 use crate::checkpoint::pickle::StandIn;
-use crate::checkpoint::{Checkpoint, Format};
+use crate::checkpoint::{Checkpoint, FolderChoice, Format};
 
 pub use finding::{Finding, FindingCode, FindingCounts, Severity};
 
@@ -42,6 +42,9 @@ pub struct CheckpointSummary {
     /// dotted name, how many objects were built from it, and whether posaudit knows it
     /// to hold data only (the unknown ones are also warnings). Empty for other formats.
     pub stand_ins: Vec<StandIn>,
+    /// How a folder was resolved to the files read (hub snapshot, file chosen and why,
+    /// the other weight files); `null` for a file path.
+    pub folder: Option<FolderChoice>,
 }
 
 impl CheckpointSummary {
@@ -54,7 +57,29 @@ impl CheckpointSummary {
             tensors: ckpt.tensors.len(),
             bytes: ckpt.total_bytes(),
             stand_ins: ckpt.stand_ins.clone(),
+            folder: ckpt.folder.clone(),
         }
+    }
+
+    /// Lines saying how a folder was resolved, when there is something to say: the hub
+    /// snapshot read, and the file chosen when the folder holds other weight files.
+    pub fn folder_lines(&self) -> Vec<String> {
+        let Some(f) = &self.folder else {
+            return Vec::new();
+        };
+        let mut out = Vec::new();
+        if let (Some(snap), Some(why)) = (&f.snapshot, &f.snapshot_reason) {
+            out.push(format!("hub cache: read {snap} ({why})"));
+        }
+        if !f.others.is_empty() {
+            out.push(format!(
+                "read {} ({}); also in the folder, not read: {} (pick one with --file NAME)",
+                f.files.join(", "),
+                f.reason,
+                f.others.join(", ")
+            ));
+        }
+        out
     }
 
     /// One sentence listing the stand-ins (`argparse.Namespace ×1, __main__.Config ×1

@@ -261,6 +261,7 @@ mod tests {
                         tensors: 2,
                         bytes: 100,
                         stand_ins: vec![],
+                        folder: None,
                     },
                 })
                 .collect(),
