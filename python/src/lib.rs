@@ -91,7 +91,8 @@ fn scan_json(py: Python<'_>, path: PathBuf, tables: Vec<String>) -> PyResult<Str
             path,
             tables,
             file: None,
-        }).map_err(lib_error)?;
+        })
+        .map_err(lib_error)?;
         json_text(&report).map_err(lib_error)
     })
     .map_err(input_error)
