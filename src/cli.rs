@@ -31,7 +31,9 @@ macro_rules! scan_examples {
   posaudit scan model.gguf --json > tables.json
       the same as one JSON document (schema posaudit/scan/v1)
   posaudit scan model.safetensors --table encoder.pos_table
-      also classify a tensor that the detector passed over"
+      also classify a tensor that the detector passed over
+  posaudit scan checkpoints/step-20000 --file model_ema.safetensors
+      a folder with several weight files: read this one"
     };
 }
 
@@ -47,7 +49,9 @@ macro_rules! audit_examples {
   posaudit audit model.safetensors --table encoder.pos_table
       also analyse a tensor that the detector passed over
   posaudit audit big-model/ --threads 4
-      use four threads for the SVDs of large tables"
+      use four threads for the SVDs of large tables
+  posaudit audit checkpoints/step-20000 --file model_ema.safetensors
+      a folder with several weight files: audit this one"
     };
 }
 
@@ -196,6 +200,15 @@ pub struct AuditArgs {
     /// only the detected tables.
     #[arg(long = "table", value_name = "NAME", verbatim_doc_comment)]
     pub tables: Vec<String>,
+    /// The weight file to read, when PATH is a folder holding several
+    ///
+    /// A file name inside the folder (or inside the hub snapshot it resolves
+    /// to), e.g. `--file model_ema.safetensors`. Default: the index of shards,
+    /// else the conventional name (model.safetensors, pytorch_model.bin,
+    /// model.onnx), else the only weight file; the summary says which was read
+    /// and lists the others.
+    #[arg(long, value_name = "NAME", verbatim_doc_comment)]
+    pub file: Option<String>,
     /// Write report.md, the SVG plots it links, and report.json into DIR
     ///
     /// DIR is created if needed and checked for writing before any analysis
@@ -256,6 +269,15 @@ pub struct ScanArgs {
     /// only the detected tables.
     #[arg(long = "table", value_name = "NAME", verbatim_doc_comment)]
     pub tables: Vec<String>,
+    /// The weight file to read, when PATH is a folder holding several
+    ///
+    /// A file name inside the folder (or inside the hub snapshot it resolves
+    /// to), e.g. `--file model_ema.safetensors`. Default: the index of shards,
+    /// else the conventional name (model.safetensors, pytorch_model.bin,
+    /// model.onnx), else the only weight file; the summary says which was read
+    /// and lists the others.
+    #[arg(long, value_name = "NAME", verbatim_doc_comment)]
+    pub file: Option<String>,
     /// Print the JSON document on stdout instead of the table
     ///
     /// Schema posaudit/scan/v1: the checkpoint (path, format, files, tensors,

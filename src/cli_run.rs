@@ -87,6 +87,7 @@ fn dispatch(cli: Cli) -> Result<u8> {
             let report = scan::run(&scan::ScanOptions {
                 path: args.path,
                 tables: args.tables,
+                file: args.file,
             })?;
             let rendered = Rendered {
                 json: output::json_text(&report)?,
@@ -105,6 +106,7 @@ fn dispatch(cli: Cli) -> Result<u8> {
                 path: args.path,
                 tables: args.tables,
                 threads: args.threads,
+                file: args.file,
             };
             let report = with_progress(|progress| audit::run(&options, progress))?;
             let files = report::audit_files(&report);

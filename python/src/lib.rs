@@ -87,7 +87,12 @@ fn run_cli(py: Python<'_>, argv: Vec<OsString>) -> u8 {
 #[pyo3(signature = (path, tables=Vec::new()))]
 fn scan_json(py: Python<'_>, path: PathBuf, tables: Vec<String>) -> PyResult<String> {
     py.detach(move || {
-        let report = scan::run(&scan::ScanOptions { path, tables }).map_err(lib_error)?;
+        let report = scan::run(&scan::ScanOptions {
+            path,
+            tables,
+            file: None,
+        })
+        .map_err(lib_error)?;
         json_text(&report).map_err(lib_error)
     })
     .map_err(input_error)
@@ -108,6 +113,7 @@ fn audit_json(
             path,
             tables,
             threads: 1,
+            file: None,
         };
         let report = audit::run(&options, &mut |_, _, _| {}).map_err(lib_error)?;
         finish(&report, out.as_deref(), posaudit::report::audit_files)

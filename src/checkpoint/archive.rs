@@ -175,7 +175,7 @@ pub(crate) fn member_prefix(
             Ok(out)
         }
         // Archive members are never varint runs (those are ONNX typed fields).
-        Storage::Varints { .. } => Err(CheckpointError::invalid(
+        Storage::Varints { .. } | Storage::Owned(_) => Err(CheckpointError::invalid(
             &file.path,
             "unexpected storage for an archive member",
         )),

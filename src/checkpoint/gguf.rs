@@ -533,6 +533,7 @@ pub fn open(file: SourceFile) -> Result<Opened, CheckpointError> {
         tensors: header.tensors,
         hints: Some(hints),
         warnings: Vec::new(),
+        stand_ins: Vec::new(),
     })
 }
 

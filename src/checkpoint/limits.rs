@@ -111,6 +111,7 @@ fn stored_elements(t: &TensorInfo) -> usize {
         // Typed ONNX fields: the element count was checked against the tensor at open.
         Storage::Varints { .. } => t.numel(),
         Storage::Mapped { len, .. } => len / size,
+        Storage::Owned(bytes) => bytes.0.len() / size,
         Storage::ZipMember {
             size: declared,
             skip,
@@ -172,6 +173,7 @@ pub(crate) fn tensor_problem(t: &TensorInfo, elements: usize) -> Option<String> 
 enum StorageKey {
     Mapped(usize, usize, usize),
     Member(usize, String),
+    Owned(usize, usize),
 }
 
 /// Decides, tensor by tensor, whether a tensor may be examined (probed, read, analysed)
@@ -209,6 +211,7 @@ impl AnalysisBudget {
             Storage::Mapped { offset, len } => StorageKey::Mapped(t.file, *offset, *len),
             Storage::ZipMember { member, .. } => StorageKey::Member(t.file, member.clone()),
             Storage::Varints { offset, len, .. } => StorageKey::Mapped(t.file, *offset, *len),
+            Storage::Owned(bytes) => StorageKey::Owned(bytes.0.as_ptr() as usize, bytes.0.len()),
         };
         let stored = stored_elements(t);
         let cap = stored

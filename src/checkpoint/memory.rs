@@ -87,6 +87,8 @@ impl Checkpoint {
             tensors: infos,
             config,
             warnings: Vec::new(),
+            stand_ins: Vec::new(),
+            folder: None,
             by_name,
             kind_hints,
         })

@@ -139,6 +139,9 @@ pub enum Storage {
         /// The member's compressed size (bytes really in the file).
         compressed: u64,
     },
+    /// Bytes copied out of the file when opening (a NumPy array pickled inside a torch
+    /// checkpoint, whose bytes the pickle holds as text).
+    Owned(OwnedBytes),
     /// Packed protobuf varints (ONNX typed fields), decoded when read into `width`-byte
     /// little-endian integers.
     Varints {
@@ -149,6 +152,16 @@ pub enum Storage {
         /// Bytes per decoded element.
         width: usize,
     },
+}
+
+/// Bytes owned by the index ([`Storage::Owned`]); printed by length only.
+#[derive(Clone, PartialEq, Eq)]
+pub struct OwnedBytes(pub Arc<[u8]>);
+
+impl std::fmt::Debug for OwnedBytes {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "OwnedBytes({} bytes)", self.0.len())
+    }
 }
 
 /// One tensor of the checkpoint: everything except its values.
@@ -359,6 +372,26 @@ pub struct Opened {
     pub hints: Option<ConfigHints>,
     /// Non-fatal problems met while opening.
     pub warnings: Vec<String>,
+    /// Pickled globals read as inert stand-ins (torch checkpoints; empty otherwise).
+    pub stand_ins: Vec<pickle::StandIn>,
+}
+
+/// How a folder was resolved to the weight files read: the hub snapshot (when the folder
+/// is a Hugging Face hub cache entry), the file chosen and why, and the other weight
+/// files that were not read.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
+pub struct FolderChoice {
+    /// The snapshot read, as `snapshots/<revision>`, when the folder is a hub cache entry
+    /// (`models--org--name/` with `refs/` and `snapshots/`).
+    pub snapshot: Option<String>,
+    /// Why that snapshot (`refs/main` names it, or it is the only one).
+    pub snapshot_reason: Option<String>,
+    /// The weight file(s) read, named as the (snapshot) folder shows them.
+    pub files: Vec<String>,
+    /// Why these were chosen.
+    pub reason: String,
+    /// Other weight files in the folder, not read (pick one with `--file NAME`).
+    pub others: Vec<String>,
 }
 
 /// An opened checkpoint: its files, its tensor index and the configuration hints.
@@ -376,6 +409,10 @@ pub struct Checkpoint {
     pub config: Option<ConfigHints>,
     /// Non-fatal problems (e.g. a broken `config.json`).
     pub warnings: Vec<String>,
+    /// Pickled globals read as inert stand-ins ([`pickle::StandIn`]).
+    pub stand_ins: Vec<pickle::StandIn>,
+    /// How a folder was resolved to its weight files (`None` for a file path).
+    pub folder: Option<FolderChoice>,
     /// Position of each tensor in `tensors` by name (names are unique: checked at open).
     by_name: HashMap<String, usize>,
     /// Kinds given by the caller for some tensors (in-memory tables, [`memory`]): the
@@ -481,16 +518,34 @@ impl Checkpoint {
     /// only. A `config.json` beside the weights is read for hints; a broken one becomes a
     /// warning.
     pub fn open(path: &Path) -> Result<Checkpoint, CheckpointError> {
+        Self::open_choosing(path, None)
+    }
+
+    /// [`Checkpoint::open`], reading the weight file `file` of the folder `path` (a
+    /// name inside the folder, or inside the hub snapshot it resolves to) instead of
+    /// the one posaudit would choose. `file` with a file path is an error.
+    pub fn open_choosing(path: &Path, file: Option<&str>) -> Result<Checkpoint, CheckpointError> {
         let meta = std::fs::metadata(path).map_err(|e| CheckpointError::io(path, e))?;
-        let opened = if meta.is_dir() {
-            open_folder(path)?
+        let (opened, folder, choice) = if meta.is_dir() {
+            let (dir, snapshot) = resolve_hub_cache(path)?;
+            let (opened, mut choice) = open_folder(&dir, file)?;
+            if let Some((snap, why)) = snapshot {
+                choice.snapshot = Some(snap);
+                choice.snapshot_reason = Some(why);
+            }
+            (opened, dir, Some(choice))
         } else {
-            open_file(path)?
-        };
-        let folder = if meta.is_dir() {
-            path.to_path_buf()
-        } else {
-            path.parent().map(Path::to_path_buf).unwrap_or_default()
+            if let Some(f) = file {
+                return Err(CheckpointError::NotACheckpoint {
+                    path: path.to_path_buf(),
+                    problem: format!(
+                        "is a file; --file `{}` picks a file inside a folder (give the folder, or this file alone)",
+                        shown(f)
+                    ),
+                });
+            }
+            let parent = path.parent().map(Path::to_path_buf).unwrap_or_default();
+            (open_file(path)?, parent, None)
         };
         let by_name = index_names(&opened, path)?;
         let mut warnings = opened.warnings;
@@ -521,6 +576,8 @@ impl Checkpoint {
             tensors: opened.tensors,
             config,
             warnings,
+            stand_ins: opened.stand_ins,
+            folder: choice,
             by_name,
             kind_hints: Vec::new(),
         })
@@ -551,7 +608,7 @@ impl Checkpoint {
     }
 
     /// The raw bytes of a tensor's storage: borrowed from the map, or decompressed.
-    fn storage_bytes(&self, t: &TensorInfo) -> Result<Cow<'_, [u8]>, CheckpointError> {
+    fn storage_bytes<'a>(&'a self, t: &'a TensorInfo) -> Result<Cow<'a, [u8]>, CheckpointError> {
         let file = self.file_of(t)?;
         match &t.storage {
             Storage::Mapped { offset, len } => {
@@ -570,6 +627,7 @@ impl Checkpoint {
                         )
                     })
             }
+            Storage::Owned(bytes) => Ok(Cow::Borrowed(&bytes.0[..])),
             Storage::Varints { offset, len, width } => {
                 onnx::decode_varints(file, *offset, *len, *width).map(Cow::Owned)
             }
@@ -795,7 +853,14 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
     if file.bytes().is_empty() {
         return Err(CheckpointError::invalid(path, "file is empty"));
     }
-    match sniff(path, file.bytes()) {
+    let format = sniff(path, file.bytes());
+    if let Some(problem) = foreign_format(file.bytes(), format) {
+        return Err(CheckpointError::NotACheckpoint {
+            path: path.to_path_buf(),
+            problem,
+        });
+    }
+    match format {
         Some(Format::Safetensors) => safetensors::open_files(vec![file]),
         Some(Format::Pytorch) => pytorch::open_files(vec![file]),
         Some(Format::Numpy) => numpy::open(path, file),
@@ -812,7 +877,181 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
     }
 }
 
-fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
+/// The first line of every Git LFS pointer file (the Git LFS specification, "The pointer").
+const LFS_SPEC: &[u8] = b"version https://git-lfs.github.com/spec/v1";
+/// The HDF5 format signature (HDF5 File Format Specification, "Format Signature").
+const HDF5_MAGIC: &[u8] = b"\x89HDF\r\n\x1a\n";
+/// The last 8 bytes of a LevelDB-style table, the layout of a TensorFlow checkpoint's
+/// `.index` file (LevelDB `table_format.md`: `kTableMagicNumber` 0xdb4775248b80fb57,
+/// stored little-endian).
+const TABLE_MAGIC: [u8; 8] = 0xdb4775248b80fb57u64.to_le_bytes();
+
+/// Recognises a file of another kind given under a weight file's name (by its magic
+/// number or content, never its name) and says what it is: a Git LFS pointer, HDF5, a
+/// TensorFlow checkpoint index, a plain pickle where no pickle is expected, or text.
+/// `None` when the file may be what its name says (its reader then checks it).
+fn foreign_format(bytes: &[u8], expected: Option<Format>) -> Option<String> {
+    if bytes.starts_with(LFS_SPEC) {
+        let size = std::str::from_utf8(&bytes[..bytes.len().min(1024)])
+            .ok()
+            .and_then(|t| t.lines().find_map(|l| l.strip_prefix("size ")))
+            .map(|n| format!(" (the real file has {} bytes)", shown(n.trim())))
+            .unwrap_or_default();
+        return Some(format!(
+            "is a Git LFS pointer, not the weights{size}: fetch them (git lfs pull)"
+        ));
+    }
+    if bytes.starts_with(HDF5_MAGIC) {
+        return Some(
+            "is an HDF5 file (Keras / TensorFlow .h5 weights), a format posaudit does not read: convert it to safetensors".into(),
+        );
+    }
+    if bytes.len() >= 48 && bytes[bytes.len() - 8..] == TABLE_MAGIC {
+        return Some(
+            "is a TensorFlow checkpoint index (a LevelDB-style table naming the variables in .data-* shards), a format posaudit does not read: convert the checkpoint to safetensors".into(),
+        );
+    }
+    let pickle_start = bytes.len() >= 2 && bytes[0] == 0x80 && (2..=5).contains(&bytes[1]);
+    if pickle_start && expected != Some(Format::Pytorch) {
+        return Some(
+            "is a Python pickle, not the format its name says (a pickle is read only as a torch.save .bin/.pt/.pth/.ckpt file)".into(),
+        );
+    }
+    let head = &bytes[..bytes.len().min(512)];
+    let text = match std::str::from_utf8(head) {
+        Ok(t) => Some(t),
+        // A multi-byte character cut at the end of the sample.
+        Err(e) if e.valid_up_to() + 4 > head.len() => {
+            std::str::from_utf8(&head[..e.valid_up_to()]).ok()
+        }
+        Err(_) => None,
+    };
+    if let Some(t) = text
+        && !t.trim().is_empty()
+        && t.chars()
+            .all(|c| !c.is_control() || matches!(c, '\n' | '\r' | '\t'))
+    {
+        let first = t.lines().find(|l| !l.trim().is_empty()).unwrap_or("");
+        return Some(format!(
+            "is a text file, not a checkpoint (it starts with `{}`)",
+            limits::shown_max(first.trim(), 60)
+        ));
+    }
+    None
+}
+
+/// File name endings of the weight files a folder may hold.
+const WEIGHT_EXTENSIONS: [&str; 9] = [
+    "safetensors",
+    "bin",
+    "pt",
+    "pth",
+    "ckpt",
+    "npy",
+    "npz",
+    "gguf",
+    "onnx",
+];
+
+/// True when `p` is named like a weight file.
+fn is_weight_file(p: &Path) -> bool {
+    let ext = p
+        .extension()
+        .map(|e| e.to_string_lossy().to_ascii_lowercase())
+        .unwrap_or_default();
+    WEIGHT_EXTENSIONS.contains(&ext.as_str())
+}
+
+/// The file name of `p` for messages and reports.
+fn file_name(p: &Path) -> String {
+    p.file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| p.display().to_string())
+}
+
+/// Most snapshot revisions listed in a message.
+const MAX_LISTED: usize = 5;
+
+/// Resolves a Hugging Face hub cache entry (`models--org--name/` holding `refs/` and
+/// `snapshots/<revision>/`, whose files are symbolic links into `blobs/`) to the snapshot
+/// folder to read: the revision `refs/main` names, else the only snapshot. Any other
+/// folder is returned as it is. The layout is huggingface_hub's documented cache
+/// structure ("Manage the cache" guide).
+fn resolve_hub_cache(dir: &Path) -> Result<(PathBuf, Option<(String, String)>), CheckpointError> {
+    let snapshots = dir.join("snapshots");
+    if !snapshots.is_dir() || !dir.join("refs").is_dir() && !dir.join("blobs").is_dir() {
+        return Ok((dir.to_path_buf(), None));
+    }
+    let main = dir.join("refs").join("main");
+    if main.is_file() {
+        let bytes = read_small_file(&main, 4096, "hub ref")?;
+        let rev = String::from_utf8_lossy(&bytes).trim().to_string();
+        let ok = !rev.is_empty()
+            && rev.len() <= 128
+            && rev
+                .chars()
+                .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_' || c == '.')
+            && rev != "."
+            && rev != "..";
+        if !ok {
+            return Err(CheckpointError::invalid(
+                &main,
+                format!("names `{}`, not a snapshot revision", shown(&rev)),
+            ));
+        }
+        let snap = snapshots.join(&rev);
+        if !snap.is_dir() {
+            return Err(CheckpointError::NotACheckpoint {
+                path: dir.to_path_buf(),
+                problem: format!(
+                    "hub cache: refs/main names revision {rev}, but snapshots/{rev} is missing (download it again, or give a snapshot folder)"
+                ),
+            });
+        }
+        return Ok((
+            snap,
+            Some((
+                format!("snapshots/{rev}"),
+                "the revision refs/main names".into(),
+            )),
+        ));
+    }
+    let mut revs: Vec<String> = std::fs::read_dir(&snapshots)
+        .map_err(|e| CheckpointError::io(&snapshots, e))?
+        .flatten()
+        .filter(|e| e.path().is_dir())
+        .map(|e| e.file_name().to_string_lossy().into_owned())
+        .collect();
+    revs.sort();
+    match revs.as_slice() {
+        [one] => Ok((
+            snapshots.join(one),
+            Some((
+                format!("snapshots/{one}"),
+                "the only snapshot (no refs/main)".into(),
+            )),
+        )),
+        [] => Err(CheckpointError::NotACheckpoint {
+            path: dir.to_path_buf(),
+            problem: "hub cache folder with no snapshot (nothing was downloaded)".into(),
+        }),
+        many => Err(CheckpointError::NotACheckpoint {
+            path: dir.to_path_buf(),
+            problem: format!(
+                "hub cache folder with {} snapshots and no refs/main: give one snapshot folder ({})",
+                many.len(),
+                many.iter()
+                    .take(MAX_LISTED)
+                    .map(|r| format!("snapshots/{}", shown(r)))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+        }),
+    }
+}
+
+/// Opens the weights of a folder and says which files were read and why.
+fn open_folder(dir: &Path, file: Option<&str>) -> Result<(Opened, FolderChoice), CheckpointError> {
     let entries = std::fs::read_dir(dir).map_err(|e| CheckpointError::io(dir, e))?;
     let mut names: Vec<PathBuf> = Vec::new();
     for entry in entries {
@@ -822,6 +1061,77 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
         }
     }
     names.sort();
+    let weights: Vec<PathBuf> = names
+        .iter()
+        .filter(|p| is_weight_file(p))
+        .cloned()
+        .collect();
+    let choice = |opened: &Opened, reason: String| {
+        let read: Vec<String> = opened.files.iter().map(|f| file_name(&f.path)).collect();
+        let others = weights
+            .iter()
+            .map(|p| file_name(p))
+            .filter(|n| !read.contains(n))
+            .collect();
+        FolderChoice {
+            snapshot: None,
+            snapshot_reason: None,
+            files: read,
+            reason,
+            others,
+        }
+    };
+    if let Some(name) = file {
+        let named = Path::new(name);
+        let simple = named.components().count() == 1
+            && matches!(
+                named.components().next(),
+                Some(std::path::Component::Normal(_))
+            );
+        let target = dir.join(named);
+        if !simple || !target.is_file() {
+            return Err(CheckpointError::NotACheckpoint {
+                path: dir.to_path_buf(),
+                problem: format!(
+                    "--file `{}` is not a file of this folder (weight files here: {})",
+                    shown(name),
+                    listed(&weights)
+                ),
+            });
+        }
+        let opened = open_file(&target)?;
+        let c = choice(&opened, "named with --file".into());
+        return Ok((opened, c));
+    }
+    let (opened, reason) = open_folder_default(dir, &names, &weights)?;
+    let c = choice(&opened, reason);
+    Ok((opened, c))
+}
+
+/// `a, b, c` of file names (at most [`MAX_LISTED`], then `…`), or `none`.
+fn listed(paths: &[PathBuf]) -> String {
+    if paths.is_empty() {
+        return "none".into();
+    }
+    let mut s = paths
+        .iter()
+        .take(MAX_LISTED)
+        .map(|p| shown(&file_name(p)))
+        .collect::<Vec<_>>()
+        .join(", ");
+    if paths.len() > MAX_LISTED {
+        s.push_str(", …");
+    }
+    s
+}
+
+/// The folder's default choice: an index of shards, the conventional file name, shards
+/// named `-of-`, or its only weight file; several others are ambiguous.
+fn open_folder_default(
+    dir: &Path,
+    names: &[PathBuf],
+    weights: &[PathBuf],
+) -> Result<(Opened, String), CheckpointError> {
     let has = |suffix: &str| -> Vec<PathBuf> {
         names
             .iter()
@@ -829,81 +1139,79 @@ fn open_folder(dir: &Path) -> Result<Opened, CheckpointError> {
             .cloned()
             .collect()
     };
+    let is_shard = |p: &PathBuf| file_name(p).contains("-of-");
     let st_index = has(".safetensors.index.json");
     if let Some(index) = st_index.first() {
-        return safetensors::open_sharded(index);
+        let why = format!("`{}` lists its shards", file_name(index));
+        return Ok((safetensors::open_sharded(index)?, why));
     }
     let single = dir.join("model.safetensors");
     if single.is_file() {
-        return open_file(&single);
+        let why = if weights.len() > 1 {
+            "the conventional name model.safetensors, preferred over the other weight files"
+        } else {
+            "the only weight file"
+        };
+        return Ok((open_file(&single)?, why.into()));
     }
     let shards = has(".safetensors");
-    if !shards.is_empty() {
+    if shards.len() > 1 && shards.iter().all(is_shard) {
         let files = shards
             .iter()
             .map(|p| SourceFile::open(p))
             .collect::<Result<Vec<_>, _>>()?;
-        return safetensors::open_files(files);
+        return Ok((
+            safetensors::open_files(files)?,
+            "safetensors shards named -of-, read together (no index)".into(),
+        ));
     }
     // PyTorch: an index of shards, the conventional single file, or any one torch file.
     let bin_index = has(".bin.index.json");
     if let Some(index) = bin_index.first() {
-        return pytorch::open_sharded(index);
+        let why = format!("`{}` lists its shards", file_name(index));
+        return Ok((pytorch::open_sharded(index)?, why));
     }
-    let single = dir.join("pytorch_model.bin");
-    if single.is_file() {
-        return open_file(&single);
+    for conventional in ["pytorch_model.bin", "model.onnx"] {
+        let single = dir.join(conventional);
+        if single.is_file() {
+            let why = if weights.len() > 1 {
+                format!(
+                    "the conventional name {conventional}, preferred over the other weight files"
+                )
+            } else {
+                "the only weight file".into()
+            };
+            return Ok((open_file(&single)?, why));
+        }
     }
-    if dir.join("model.onnx").is_file() {
-        return open_file(&dir.join("model.onnx"));
-    }
-    // Otherwise exactly one file of another format; several are ambiguous.
-    let others: Vec<&PathBuf> = names
-        .iter()
-        .filter(|p| {
-            let ext = p
-                .extension()
-                .map(|e| e.to_string_lossy().to_ascii_lowercase())
-                .unwrap_or_default();
-            matches!(
-                ext.as_str(),
-                "bin" | "pt" | "pth" | "ckpt" | "npy" | "npz" | "gguf" | "onnx"
-            )
-        })
-        .collect();
     // torch shards without their index (`pytorch_model-00001-of-00002.bin`, ...).
-    let unindexed_shards = others.len() > 1
-        && others.iter().all(|p| {
-            let name = p.file_name().unwrap_or_default().to_string_lossy();
-            name.ends_with(".bin") && name.contains("-of-")
-        });
+    let unindexed_shards = weights.len() > 1
+        && weights
+            .iter()
+            .all(|p| file_name(p).ends_with(".bin") && is_shard(p));
     if unindexed_shards {
-        let files = others
+        let files = weights
             .iter()
             .map(|p| SourceFile::open(p))
             .collect::<Result<Vec<_>, _>>()?;
-        return pytorch::open_files(files);
+        return Ok((
+            pytorch::open_files(files)?,
+            "torch shards named -of-, read together (no index)".into(),
+        ));
     }
-    match others.as_slice() {
-        [one] => return open_file(one),
-        [] => {}
-        many => {
-            return Err(CheckpointError::NotACheckpoint {
-                path: dir.to_path_buf(),
-                problem: format!(
-                    "folder holds {} candidate checkpoint files ({}) and no index: name one file",
-                    many.len(),
-                    many.iter()
-                        .filter_map(|p| p.file_name())
-                        .map(|n| n.to_string_lossy().into_owned())
-                        .collect::<Vec<_>>()
-                        .join(", ")
-                ),
-            });
-        }
+    match weights {
+        [one] => Ok((open_file(one)?, "the only weight file".into())),
+        [] => Err(CheckpointError::NotACheckpoint {
+            path: dir.to_path_buf(),
+            problem: "folder holds no checkpoint (no .safetensors, .bin, .pt, .pth, .ckpt, .npy, .npz, .gguf or .onnx file)".into(),
+        }),
+        many => Err(CheckpointError::NotACheckpoint {
+            path: dir.to_path_buf(),
+            problem: format!(
+                "folder holds {} candidate checkpoint files ({}) and no index: pick one with --file NAME (or give its path)",
+                many.len(),
+                listed(many)
+            ),
+        }),
     }
-    Err(CheckpointError::NotACheckpoint {
-        path: dir.to_path_buf(),
-        problem: "folder holds no checkpoint (no .safetensors, .bin, .pt, .pth, .ckpt, .npy, .npz or .gguf file)".into(),
-    })
 }

@@ -192,7 +192,7 @@ impl LitParser<'_> {
 }
 
 /// Maps a descriptor such as `<f4` to a type and byte order.
-fn dtype_of(descr: &str) -> Result<(Dtype, bool), String> {
+pub(crate) fn dtype_of(descr: &str) -> Result<(Dtype, bool), String> {
     let (order, code) = match descr.as_bytes().first() {
         Some(b'<' | b'|' | b'=') => (false, &descr[1..]),
         Some(b'>') => (true, &descr[1..]),
@@ -359,6 +359,7 @@ fn open_npy(file: SourceFile) -> Result<Opened, CheckpointError> {
         tensors: vec![t],
         hints: None,
         warnings: Vec::new(),
+        stand_ins: Vec::new(),
     })
 }
 
@@ -440,7 +441,7 @@ fn open_npz(file: SourceFile) -> Result<Opened, CheckpointError> {
                 compressed: *compressed,
             },
             // Archive members are never varint runs (those are ONNX typed fields).
-            (Storage::Varints { .. }, _, _) => {
+            (Storage::Varints { .. } | Storage::Owned(_), _, _) => {
                 return Err(CheckpointError::invalid(&file.path, "unexpected storage"));
             }
         };
@@ -452,6 +453,7 @@ fn open_npz(file: SourceFile) -> Result<Opened, CheckpointError> {
         tensors,
         hints: None,
         warnings,
+        stand_ins: Vec::new(),
     })
 }
 

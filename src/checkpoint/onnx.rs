@@ -665,6 +665,7 @@ pub fn open(file: SourceFile) -> Result<Opened, CheckpointError> {
         tensors,
         hints: None,
         warnings,
+        stand_ins: Vec::new(),
     })
 }
 

@@ -102,6 +102,9 @@ pub enum Value {
     Tensor(Rc<TensorRef>),
     /// A harmless object we do not model (a `torch.device`, a dtype).
     Opaque(Rc<str>),
+    /// An object built as inert data: its class name, arguments and state, never called
+    /// (a stand-in, or a NumPy array / dtype / scalar read by [`ndarray_of`]).
+    Object(Rc<Object>),
     /// The stack mark.
     Mark,
 }
@@ -139,6 +142,17 @@ fn take_children(v: &mut Value, out: &mut Vec<Value>) {
                 }
             }
         }
+        Value::Object(rc) => {
+            if let Some(o) = Rc::get_mut(rc) {
+                out.push(std::mem::replace(&mut o.args, Value::None));
+                out.extend(o.state.get_mut().take());
+                for (k, v) in o.items.get_mut().drain(..) {
+                    out.push(k);
+                    out.push(v);
+                }
+                out.append(o.list.get_mut());
+            }
+        }
         _ => {}
     }
 }
@@ -159,6 +173,7 @@ impl Value {
             Value::Storage(_) => "storage",
             Value::Tensor(_) => "tensor",
             Value::Opaque(_) => "object",
+            Value::Object(_) => "object",
             Value::Mark => "mark",
         }
     }
@@ -202,10 +217,384 @@ fn is_torch_dtype(name: &str) -> bool {
     )
 }
 
+/// An object the reader does not model, built as inert data: the class it names, the
+/// arguments it would be called with, and the state and items it would be given. Nothing
+/// is imported or called.
+#[derive(Debug)]
+pub struct Object {
+    /// The dotted global name of its class or factory (`argparse.Namespace`).
+    pub class: Rc<str>,
+    /// The arguments tuple of `REDUCE` / `NEWOBJ`.
+    pub args: Value,
+    /// The state `BUILD` gives it (an attribute dict, or a tuple for NumPy objects).
+    pub state: RefCell<Option<Value>>,
+    /// Items set on it (`SETITEM(S)`, a dict subclass).
+    pub items: RefCell<Vec<(Value, Value)>>,
+    /// Items appended to it (`APPEND(S)`, a list subclass).
+    pub list: RefCell<Vec<Value>>,
+}
+
+impl Object {
+    fn new(class: Rc<str>, args: Value) -> Self {
+        Object {
+            class,
+            args,
+            state: RefCell::new(None),
+            items: RefCell::new(Vec::new()),
+            list: RefCell::new(Vec::new()),
+        }
+    }
+}
+
+/// A global that was stood in for: its name and how many objects were built from it.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize)]
+pub struct StandIn {
+    /// The dotted global name (`argparse.Namespace`, `__main__.TrainConfig`).
+    pub global: String,
+    /// Objects built from it (0 when the pickle only refers to it, e.g. as a factory).
+    pub count: usize,
+    /// True for classes posaudit knows to carry data only (argparse namespaces, paths,
+    /// dates, built-in types, NumPy random states); false for any other global, which a
+    /// full unpickler would import and run code of (listed as a warning too).
+    pub known: bool,
+}
+
+/// How the reader treats a global.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum GlobalClass {
+    /// Its meaning is reimplemented as data (tensor rebuilds, storages, dicts, NumPy
+    /// arrays).
+    Modeled,
+    /// Built as an inert [`Object`]; `known` as in [`StandIn::known`].
+    StandIn {
+        /// Known to carry data only.
+        known: bool,
+    },
+    /// It exists to run code or reach the system: the file is refused.
+    RunsCode,
+}
+
+/// Modules whose every global runs code, reaches the system or loads more pickles.
+const CODE_MODULES: &[&str] = &[
+    "os",
+    "posix",
+    "nt",
+    "subprocess",
+    "_posixsubprocess",
+    "runpy",
+    "importlib",
+    "pty",
+    "socket",
+    "shutil",
+    "webbrowser",
+    "sys",
+    "ctypes",
+    "multiprocessing",
+    "code",
+    "codeop",
+    "marshal",
+    "pickle",
+    "_pickle",
+    "cPickle",
+    "dill",
+    "cloudpickle",
+    "commands",
+    "popen2",
+    "asyncio",
+    "pdb",
+    "bdb",
+    "timeit",
+    "trace",
+    "profile",
+    "cProfile",
+    "io",
+    "_io",
+    "tempfile",
+    "glob",
+    "urllib",
+    "http",
+    "ftplib",
+    "smtplib",
+    "telnetlib",
+    "torch.hub",
+    "torch.jit",
+    "torch.package",
+    "torch.utils.cpp_extension",
+    "numpy.f2py",
+    "numpy.distutils",
+];
+
+/// `module.name` globals outside [`CODE_MODULES`] that run code.
+const CODE_GLOBALS: &[(&str, &str)] = &[
+    ("operator", "attrgetter"),
+    ("operator", "methodcaller"),
+    ("codecs", "open"),
+    ("torch", "load"),
+    ("numpy", "load"),
+    ("numpy", "loadtxt"),
+    ("numpy", "fromfile"),
+];
+
+/// `builtins` names that run code, open files or reach attributes by name.
+const CODE_BUILTINS: &[&str] = &[
+    "eval",
+    "exec",
+    "execfile",
+    "compile",
+    "__import__",
+    "getattr",
+    "setattr",
+    "delattr",
+    "open",
+    "file",
+    "input",
+    "raw_input",
+    "breakpoint",
+    "globals",
+    "locals",
+    "vars",
+    "exit",
+    "quit",
+    "help",
+    "reload",
+    "apply",
+];
+
+/// `builtins` types whose objects are plain data.
+const DATA_BUILTINS: &[&str] = &[
+    "int",
+    "long",
+    "float",
+    "complex",
+    "str",
+    "unicode",
+    "bool",
+    "list",
+    "dict",
+    "tuple",
+    "set",
+    "frozenset",
+    "object",
+    "slice",
+    "range",
+    "xrange",
+    "bytearray",
+    "NoneType",
+];
+
+/// True when `module` is `m` or a submodule of it.
+fn in_module(module: &str, m: &str) -> bool {
+    module == m
+        || module
+            .strip_prefix(m)
+            .is_some_and(|rest| rest.starts_with('.'))
+}
+
+/// Sorts a global into [`GlobalClass`].
+pub fn classify_global(module: &str, name: &str) -> GlobalClass {
+    let builtins = matches!(module, "builtins" | "__builtin__");
+    if CODE_MODULES.iter().any(|m| in_module(module, m))
+        || CODE_GLOBALS.contains(&(module, name))
+        || builtins && CODE_BUILTINS.contains(&name)
+    {
+        return GlobalClass::RunsCode;
+    }
+    let numpy_core = matches!(module, "numpy.core.multiarray" | "numpy._core.multiarray");
+    if allowed_global(module, name)
+        || (module, name) == ("collections", "defaultdict")
+        || (module, name) == ("_codecs", "encode")
+        || builtins && name == "bytes"
+        || numpy_core && matches!(name, "_reconstruct" | "scalar")
+        || module == "numpy" && matches!(name, "ndarray" | "dtype")
+    {
+        return GlobalClass::Modeled;
+    }
+    let known = builtins && DATA_BUILTINS.contains(&name)
+        || (module, name) == ("argparse", "Namespace")
+        || matches!(module, "copyreg" | "copy_reg") && name == "_reconstructor"
+        || [
+            "pathlib",
+            "datetime",
+            "decimal",
+            "fractions",
+            "uuid",
+            "numpy.random",
+        ]
+        .iter()
+        .any(|m| in_module(module, m))
+        || in_module(module, "torch.nn.modules")
+        || (module, name) == ("torch", "Size")
+        || (module, name) == ("torch.torch_version", "TorchVersion")
+        || (module, name) == ("torch.nn.parameter", "Parameter");
+    GlobalClass::StandIn { known }
+}
+
+/// A NumPy array read from its pickled form (`_reconstruct` + state, or a `scalar`).
+#[derive(Debug, Clone)]
+pub struct NdArray {
+    /// Element type.
+    pub dtype: super::Dtype,
+    /// Elements stored big-endian.
+    pub big_endian: bool,
+    /// Shape (empty for a scalar).
+    pub shape: Vec<usize>,
+    /// Column-major element order.
+    pub fortran: bool,
+    /// The elements' bytes.
+    pub data: Rc<[u8]>,
+}
+
+/// Class tags of the NumPy objects [`ndarray_of`] reads.
+const NP_ARRAY: &str = "numpy.ndarray";
+const NP_SCALAR: &str = "numpy.scalar";
+const NP_DTYPE: &str = "numpy.dtype";
+
+/// `(dtype, big_endian)` of a pickled `numpy.dtype` object: its type string (`f4`) from
+/// the arguments, its byte order (`<`, `>`, `|`, `=`) from the state; `=` (native) is
+/// read as little-endian, the byte order of every machine that writes these files today.
+fn np_dtype(v: &Value) -> Result<(super::Dtype, bool), String> {
+    let Value::Object(o) = v else {
+        return Err(format!(
+            "the array's dtype is a {}, not a numpy.dtype",
+            v.kind()
+        ));
+    };
+    if &*o.class != NP_DTYPE {
+        return Err(format!(
+            "the array's dtype is a `{}`",
+            super::shown(&o.class)
+        ));
+    }
+    let code = match &o.args {
+        Value::Tuple(t) => match t.first() {
+            Some(Value::Str(s)) => s.clone(),
+            _ => return Err("numpy.dtype without a type string".into()),
+        },
+        _ => return Err("numpy.dtype without arguments".into()),
+    };
+    let order = match &*o.state.borrow() {
+        Some(Value::Tuple(t)) => match t.get(1) {
+            Some(Value::Str(s)) => s.to_string(),
+            _ => String::new(),
+        },
+        _ => String::new(),
+    };
+    let order = if order == "=" { "<" } else { &order };
+    super::numpy::dtype_of(&format!("{order}{code}"))
+}
+
+/// Reads a pickled NumPy array or scalar. `None` when `o` is not one; an error when it
+/// is one but its state is not what NumPy writes, or its bytes do not match its shape.
+/// Arrays of Python objects (dtype `O`) are `None`: their elements are more pickles.
+pub fn ndarray_of(o: &Object) -> Option<Result<NdArray, String>> {
+    let class = &*o.class;
+    if class != NP_ARRAY && class != NP_SCALAR {
+        return None;
+    }
+    let result = (|| -> Result<Option<NdArray>, String> {
+        let (dtype_v, shape, fortran, data) = if class == NP_SCALAR {
+            // scalar(dtype, bytes)
+            let Value::Tuple(a) = &o.args else {
+                return Err("numpy scalar without arguments".into());
+            };
+            match a.as_slice() {
+                [d, Value::Bytes(b)] => (d.clone(), Vec::new(), false, b.clone()),
+                [_, _] => return Ok(None),
+                _ => return Err("numpy scalar expects (dtype, bytes)".into()),
+            }
+        } else {
+            // _reconstruct(ndarray, (0,), b'b') then BUILD((version,) shape, dtype,
+            // is_fortran, data).
+            let state = o.state.borrow();
+            let Some(Value::Tuple(t)) = &*state else {
+                return Err("numpy array without its state".into());
+            };
+            let rest = match t.as_slice() {
+                [Value::Int(_), rest @ ..] if rest.len() == 4 => rest,
+                rest if rest.len() == 4 => rest,
+                _ => {
+                    return Err(
+                        "numpy array state is not (version, shape, dtype, fortran, data)".into(),
+                    );
+                }
+            };
+            let shape = u64_tuple(&rest[0])
+                .ok_or("numpy array shape is not a tuple of integers")?
+                .into_iter()
+                .map(|d| usize::try_from(d).map_err(|_| format!("dimension {d} is too large")))
+                .collect::<Result<Vec<_>, _>>()?;
+            if shape.len() > MAX_DIMS {
+                return Err(format!(
+                    "numpy array of {} dimensions, more than the limit of {MAX_DIMS}",
+                    shape.len()
+                ));
+            }
+            let fortran = matches!(rest[2], Value::Bool(true) | Value::Int(1));
+            let data = match &rest[3] {
+                Value::Bytes(b) => b.clone(),
+                Value::Str(s) => Rc::from(latin1(s)?),
+                // A list of Python objects: an object array.
+                _ => return Ok(None),
+            };
+            (rest[1].clone(), shape, fortran, data)
+        };
+        let (dtype, big_endian) = match np_dtype(&dtype_v) {
+            Ok(d) => d,
+            Err(e) if e.contains("Python objects") => return Ok(None),
+            Err(e) => return Err(e),
+        };
+        let numel = shape
+            .iter()
+            .try_fold(1usize, |a, &b| a.checked_mul(b))
+            .ok_or("numpy array shape overflows")?;
+        if let Some(size) = dtype.size()
+            && numel.checked_mul(size) != Some(data.len())
+        {
+            return Err(format!(
+                "numpy array of shape {shape:?} and {size}-byte elements holds {} bytes",
+                data.len()
+            ));
+        }
+        Ok(Some(NdArray {
+            dtype,
+            big_endian,
+            shape,
+            fortran,
+            data,
+        }))
+    })();
+    result.transpose()
+}
+
+/// The bytes of a `latin1` text (each character one byte), as `_codecs.encode(s,
+/// 'latin1')` gives them; protocol-2 pickles written by Python 3 carry bytes this way.
+fn latin1(s: &str) -> Result<Vec<u8>, String> {
+    s.chars()
+        .map(|c| {
+            u8::try_from(c as u32)
+                .map_err(|_| format!("character U+{:04X} is not latin1", c as u32))
+        })
+        .collect()
+}
+
+/// What [`load_with_stand_ins`] returns.
+#[derive(Debug)]
+pub struct Loaded {
+    /// The unpickled value.
+    pub value: Value,
+    /// The globals stood in for, in the order they first appear.
+    pub stand_ins: Vec<StandIn>,
+}
+
 /// Reads a `data.pkl` and returns the unpickled value (tensors as [`TensorRef`]s).
 ///
 /// Errors are one lower-case line: the problem and the byte position.
 pub fn load(bytes: &[u8]) -> Result<Value, String> {
+    load_with_stand_ins(bytes).map(|l| l.value)
+}
+
+/// [`load`], also returning the globals that were stood in for.
+pub fn load_with_stand_ins(bytes: &[u8]) -> Result<Loaded, String> {
     if bytes.len() > MAX_PICKLE_BYTES {
         return Err(format!(
             "data.pkl is {} bytes, more than the {} MiB limit",
@@ -221,6 +610,8 @@ pub fn load(bytes: &[u8]) -> Result<Value, String> {
         memo: Vec::new(),
         sparse_memo: HashMap::new(),
         items: 0,
+        stand_ins: Vec::new(),
+        stand_in_index: HashMap::new(),
     }
     .run()
 }
@@ -237,6 +628,10 @@ struct Machine<'a> {
     sparse_memo: HashMap<u64, Value>,
     /// Values put into containers so far ([`MAX_ITEMS`]).
     items: usize,
+    /// Globals stood in for, with their object counts.
+    stand_ins: Vec<StandIn>,
+    /// Position of each stood-in global in `stand_ins`.
+    stand_in_index: HashMap<Rc<str>, usize>,
 }
 
 impl<'a> Machine<'a> {
@@ -405,16 +800,43 @@ impl<'a> Machine<'a> {
     }
 
     fn global(&mut self, module: &str, name: &str) -> Result<(), String> {
-        if !allowed_global(module, name) {
-            return Err(format!(
-                "refuses global `{}` (posaudit never executes pickled code)",
-                super::shown(&format!("{module}.{name}"))
-            ));
+        let full: Rc<str> = Rc::from(format!("{module}.{name}"));
+        match classify_global(module, name) {
+            GlobalClass::RunsCode => {
+                return Err(format!(
+                    "refuses global `{}` (posaudit never executes pickled code): it exists to run code or reach the system, and loading this file with full unpickling (pickle.load, torch.load with weights_only=False) would run it",
+                    super::shown(&full)
+                ));
+            }
+            GlobalClass::Modeled => {}
+            GlobalClass::StandIn { known } => {
+                if !self.stand_in_index.contains_key(&full) {
+                    self.stand_in_index
+                        .insert(full.clone(), self.stand_ins.len());
+                    self.stand_ins.push(StandIn {
+                        global: full.to_string(),
+                        count: 0,
+                        known,
+                    });
+                }
+            }
         }
-        self.push(Value::Global(Rc::from(format!("{module}.{name}"))))
+        self.push(Value::Global(full))
     }
 
-    fn run(mut self) -> Result<Value, String> {
+    /// Calls `func` with `args` as data: a stood-in global builds an inert [`Object`],
+    /// a modeled one is applied by [`reduce`].
+    fn call(&mut self, func: &Value, args: Value, at: usize) -> Result<Value, String> {
+        if let Value::Global(g) = func
+            && let Some(&i) = self.stand_in_index.get(g)
+        {
+            self.stand_ins[i].count += 1;
+            return Ok(Value::Object(Rc::new(Object::new(g.clone(), args))));
+        }
+        reduce(func, &args, at)
+    }
+
+    fn run(mut self) -> Result<Loaded, String> {
         let mut ops = 0usize;
         loop {
             ops += 1;
@@ -437,8 +859,12 @@ impl<'a> Machine<'a> {
                 }
                 // STOP
                 b'.' => {
-                    let v = self.pop()?;
-                    return Ok(v);
+                    let value = self.pop()?;
+                    let stand_ins = std::mem::take(&mut self.stand_ins)
+                        .into_iter()
+                        .filter(|s| s.count > 0 || !s.known)
+                        .collect();
+                    return Ok(Loaded { value, stand_ins });
                 }
                 b'(' => {
                     if self.marks.len() >= MAX_DEPTH {
@@ -636,14 +1062,37 @@ impl<'a> Machine<'a> {
                         let n = l.borrow().len();
                         self.count_items(n.saturating_mul(2))?;
                     }
-                    let v = reduce(&func, &args, at)?;
+                    let v = self.call(&func, args, at)?;
                     self.push(v)?;
                 }
-                // BUILD: object state (e.g. an OrderedDict's `_metadata`); we keep the
-                // object as it is and never set attributes.
-                b'b' => {
+                // NEWOBJ_EX: class, args, kwargs (the keyword arguments are dropped).
+                0x92 => {
                     self.pop()?;
-                    self.top()?;
+                    let args = self.pop()?;
+                    let func = self.pop()?;
+                    let v = self.call(&func, args, at)?;
+                    self.push(v)?;
+                }
+                // BUILD: object state. A stand-in keeps it as data; other values (an
+                // OrderedDict's `_metadata`, a parameter's hooks) stay as they are: no
+                // attribute is ever set.
+                b'b' => {
+                    let state = self.pop()?;
+                    if let Value::Object(o) = self.top()? {
+                        *o.state.borrow_mut() = Some(state);
+                    }
+                }
+                // EMPTY_SET, ADDITEMS, FROZENSET: sets are read as lists.
+                0x8f => self.push(Value::List(Rc::default()))?,
+                0x90 => {
+                    let items = self.pop_mark()?;
+                    self.count_items(items.len())?;
+                    list_extend(self.top()?, items, at)?;
+                }
+                0x91 => {
+                    let items = self.pop_mark()?;
+                    self.count_items(items.len())?;
+                    self.push(Value::List(Rc::new(RefCell::new(items))))?;
                 }
                 other => {
                     return Err(format!(
@@ -698,6 +1147,10 @@ fn dict_extend(target: &mut Value, items: Vec<(Value, Value)>, at: usize) -> Res
             d.borrow_mut().extend(items);
             Ok(())
         }
+        Value::Object(o) => {
+            o.items.borrow_mut().extend(items);
+            Ok(())
+        }
         other => Err(format!("dict items set on a {} at byte {at}", other.kind())),
     }
 }
@@ -706,6 +1159,10 @@ fn list_extend(target: &mut Value, items: Vec<Value>, at: usize) -> Result<(), S
     match target {
         Value::List(l) => {
             l.borrow_mut().extend(items);
+            Ok(())
+        }
+        Value::Object(o) => {
+            o.list.borrow_mut().extend(items);
             Ok(())
         }
         other => Err(format!(
@@ -828,6 +1285,35 @@ fn reduce(func: &Value, args: &Value, at: usize) -> Result<Value, String> {
             }
             Ok(Value::Dict(Rc::new(RefCell::new(items))))
         }
+        // defaultdict(factory): a dict; its items follow as SETITEMS.
+        "collections.defaultdict" => Ok(Value::Dict(Rc::default())),
+        "_codecs.encode" => match args_vec.as_slice() {
+            [Value::Str(s), Value::Str(enc)] if matches!(&**enc, "latin1" | "latin-1") => latin1(s)
+                .map(|b| Value::Bytes(Rc::from(b)))
+                .map_err(|e| format!("{name} at byte {at}: {e}")),
+            [Value::Str(s), Value::Str(enc)] if matches!(&**enc, "utf-8" | "utf8") => {
+                Ok(Value::Bytes(Rc::from(s.as_bytes())))
+            }
+            [Value::Str(s)] => Ok(Value::Bytes(Rc::from(s.as_bytes()))),
+            _ => Err(format!(
+                "{name} at byte {at}: expects (text, 'latin1') as Python writes bytes"
+            )),
+        },
+        "builtins.bytes" | "__builtin__.bytes" => match args_vec.as_slice() {
+            [] => Ok(Value::Bytes(Rc::from(&b""[..]))),
+            [Value::Bytes(b)] => Ok(Value::Bytes(b.clone())),
+            _ => Ok(Value::Opaque(name.clone())),
+        },
+        "numpy.core.multiarray._reconstruct" | "numpy._core.multiarray._reconstruct" => Ok(
+            Value::Object(Rc::new(Object::new(Rc::from(NP_ARRAY), args.clone()))),
+        ),
+        "numpy.core.multiarray.scalar" | "numpy._core.multiarray.scalar" => Ok(Value::Object(
+            Rc::new(Object::new(Rc::from(NP_SCALAR), args.clone())),
+        )),
+        "numpy.dtype" => Ok(Value::Object(Rc::new(Object::new(
+            Rc::from(NP_DTYPE),
+            args.clone(),
+        )))),
         other => Ok(Value::Opaque(Rc::from(other))),
     }
 }
@@ -842,6 +1328,126 @@ mod tests {
         let p = b"\x80\x02cos\nsystem\nq\x00X\x05\x00\x00\x00echo!q\x01\x85q\x02Rq\x03.";
         let err = load(p).unwrap_err();
         assert!(err.contains("refuses global `os.system`"), "{err}");
+    }
+
+    /// `pickle.dumps(np.array([1.5, -2.0, 0.25], dtype="<f4"), protocol=2)` with numpy
+    /// 2.4.6 (the bytes below are that output); numpy 1.x writes the same pickle with the
+    /// module `numpy.core.multiarray` (its old spelling), made here by replacing the
+    /// newline-terminated module name of the GLOBAL opcode.
+    const NUMPY2_ARRAY: &[u8] = b"\x80\x02cnumpy._core.multiarray\n_reconstruct\nq\x00cnumpy\nndarray\nq\x01K\x00\x85q\x02c_codecs\nencode\nq\x03X\x01\x00\x00\x00bq\x04X\x06\x00\x00\x00latin1q\x05\x86q\x06Rq\x07\x87q\x08Rq\t(K\x01K\x03\x85q\ncnumpy\ndtype\nq\x0bX\x02\x00\x00\x00f4q\x0c\x89\x88\x87q\rRq\x0e(K\x03X\x01\x00\x00\x00<q\x0fNNNJ\xff\xff\xff\xffJ\xff\xff\xff\xffK\x00tq\x10b\x89h\x03X\x0f\x00\x00\x00\x00\x00\xc3\x80?\x00\x00\x00\xc3\x80\x00\x00\xc2\x80>q\x11h\x05\x86q\x12Rq\x13tq\x14b.";
+
+    fn f32s(bytes: &[u8]) -> Vec<f32> {
+        bytes
+            .chunks_exact(4)
+            .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+            .collect()
+    }
+
+    #[test]
+    fn numpy_arrays_are_read_in_both_module_spellings() {
+        let old: Vec<u8> = {
+            let s = NUMPY2_ARRAY;
+            let from = b"numpy._core.multiarray\n";
+            let at = s.windows(from.len()).position(|w| w == from).unwrap();
+            [
+                &s[..at],
+                &b"numpy.core.multiarray\n"[..],
+                &s[at + from.len()..],
+            ]
+            .concat()
+        };
+        for bytes in [NUMPY2_ARRAY, &old[..]] {
+            let loaded = load_with_stand_ins(bytes).unwrap();
+            assert!(loaded.stand_ins.is_empty(), "{:?}", loaded.stand_ins);
+            let Value::Object(o) = &loaded.value else {
+                panic!("{:?}", loaded.value.kind());
+            };
+            let a = ndarray_of(o).unwrap().unwrap();
+            assert_eq!(a.dtype, super::super::Dtype::F32);
+            assert_eq!(a.shape, vec![3]);
+            assert!(!a.big_endian && !a.fortran);
+            assert_eq!(f32s(&a.data), vec![1.5, -2.0, 0.25]);
+        }
+    }
+
+    #[test]
+    fn code_running_globals_are_refused_and_other_unknowns_stood_in() {
+        // The globals the pickle documentation's security warning and common practice name
+        // as running code, reaching the system or loading more pickles.
+        for (m, n) in [
+            ("os", "system"),
+            ("posix", "system"),
+            ("nt", "system"),
+            ("subprocess", "Popen"),
+            ("subprocess", "check_output"),
+            ("builtins", "eval"),
+            ("builtins", "exec"),
+            ("builtins", "compile"),
+            ("builtins", "__import__"),
+            ("builtins", "getattr"),
+            ("builtins", "open"),
+            ("__builtin__", "eval"),
+            ("runpy", "_run_code"),
+            ("importlib", "import_module"),
+            ("importlib.util", "find_spec"),
+            ("pty", "spawn"),
+            ("socket", "create_connection"),
+            ("shutil", "rmtree"),
+            ("webbrowser", "open"),
+            ("pickle", "loads"),
+            ("_pickle", "loads"),
+        ] {
+            assert_eq!(classify_global(m, n), GlobalClass::RunsCode, "{m}.{n}");
+        }
+        assert_eq!(
+            classify_global("argparse", "Namespace"),
+            GlobalClass::StandIn { known: true }
+        );
+        assert_eq!(
+            classify_global("pathlib", "PosixPath"),
+            GlobalClass::StandIn { known: true }
+        );
+        // A module named like a code one but not it (`osmium`) is only unknown.
+        assert_eq!(
+            classify_global("osmium", "Thing"),
+            GlobalClass::StandIn { known: false }
+        );
+        assert_eq!(
+            classify_global("trainer.config", "HParams"),
+            GlobalClass::StandIn { known: false }
+        );
+        assert_eq!(
+            classify_global("collections", "defaultdict"),
+            GlobalClass::Modeled
+        );
+    }
+
+    #[test]
+    fn an_unknown_class_is_built_as_data_and_counted() {
+        // Protocol 2: GLOBAL trainer.Cfg, EMPTY_TUPLE, NEWOBJ, then BUILD with {"lr": 0.5}
+        // (byte for byte what Python 3.11 `pickle.dumps(obj, protocol=2)` writes for an
+        // instance of a plain class `trainer.Cfg` with `lr = 0.5`), STOP.
+        let p = b"\x80\x02ctrainer\nCfg\nq\x00)\x81q\x01}q\x02X\x02\x00\x00\x00lrq\x03G?\xe0\x00\x00\x00\x00\x00\x00sb.";
+        let loaded = load_with_stand_ins(p).unwrap();
+        assert_eq!(
+            loaded.stand_ins,
+            vec![StandIn {
+                global: "trainer.Cfg".into(),
+                count: 1,
+                known: false
+            }]
+        );
+        let Value::Object(o) = &loaded.value else {
+            panic!("{}", loaded.value.kind());
+        };
+        assert_eq!(&*o.class, "trainer.Cfg");
+        let state = o.state.borrow();
+        let Some(Value::Dict(d)) = &*state else {
+            panic!("state");
+        };
+        assert!(
+            matches!(d.borrow()[0], (Value::Str(ref k), Value::Float(x)) if &**k == "lr" && x == 0.5)
+        );
     }
 
     #[test]

@@ -17,7 +17,7 @@ use std::collections::HashMap;
 use std::path::Path;
 
 use super::archive::{self, Member};
-use super::pickle::{self, TensorRef, Value};
+use super::pickle::{self, NdArray, StandIn, TensorRef, Value};
 use super::{CheckpointError, Dtype, Format, Opened, SourceFile, TensorInfo, limits, shown};
 
 /// The pickle that starts a pre-1.6 `torch.save` file: protocol 2, then the magic number
@@ -76,7 +76,18 @@ struct Walk {
     name_bytes: usize,
 }
 
-/// Flattens nested containers to `(dotted name, tensor)` pairs.
+/// A tensor found in the pickled object.
+#[derive(Debug)]
+enum Found {
+    /// A torch tensor, its bytes in a storage member.
+    Torch(TensorRef),
+    /// A NumPy array or scalar, its bytes in the pickle itself.
+    Numpy(NdArray),
+}
+
+/// Flattens nested containers to `(dotted name, tensor)` pairs. Stood-in objects are
+/// looked into: their state (attribute dict, or `(dict, slots)`) and items give names
+/// under the object's own name (`args.lr`, `config.table`).
 ///
 /// Cost: one step per visited value and the bytes of the names built, both capped, so a
 /// pickle that refers to one list many times, or repeats a 1 MB key through every level,
@@ -88,7 +99,7 @@ fn flatten(
     prefix: &str,
     depth: usize,
     walk: &mut Walk,
-    out: &mut Vec<(String, TensorRef)>,
+    out: &mut Vec<(String, Found)>,
 ) -> Result<(), String> {
     walk.visits += 1;
     if walk.visits > MAX_VISITS {
@@ -96,7 +107,10 @@ fn flatten(
             "the pickled object has more than {MAX_VISITS} entries (or refers to itself)"
         ));
     }
-    let is_container = matches!(v, Value::Dict(_) | Value::List(_) | Value::Tuple(_));
+    let is_container = matches!(
+        v,
+        Value::Dict(_) | Value::List(_) | Value::Tuple(_) | Value::Object(_)
+    );
     if is_container && depth >= MAX_NESTING {
         return Err(format!(
             "the pickled object nests containers more than {MAX_NESTING} deep (the limit) under `{}`",
@@ -110,16 +124,35 @@ fn flatten(
                     "the pickled object lists more than {MAX_TENSORS} tensors"
                 ));
             }
-            out.push((prefix.to_string(), (**t).clone()))
+            out.push((prefix.to_string(), Found::Torch((**t).clone())))
         }
-        Value::Dict(d) => {
-            for (k, v) in d.borrow().iter() {
-                let key = match k {
-                    Value::Str(s) => s.to_string(),
-                    Value::Int(i) => i.to_string(),
-                    _ => continue,
-                };
-                let name = join(prefix, &key, walk)?;
+        Value::Dict(d) => flatten_items(&d.borrow(), prefix, depth, walk, out)?,
+        Value::Object(o) => {
+            if let Some(array) = pickle::ndarray_of(o) {
+                let array = array.map_err(|e| format!("`{}`: {e}", shown(prefix)))?;
+                if out.len() >= MAX_TENSORS {
+                    return Err(format!(
+                        "the pickled object lists more than {MAX_TENSORS} tensors"
+                    ));
+                }
+                out.push((prefix.to_string(), Found::Numpy(array)));
+                return Ok(());
+            }
+            match &*o.state.borrow() {
+                Some(Value::Dict(d)) => flatten_items(&d.borrow(), prefix, depth, walk, out)?,
+                // (attribute dict, slots dict), as `object.__reduce_ex__` writes it.
+                Some(Value::Tuple(t)) if t.len() == 2 => {
+                    for part in t.iter() {
+                        if let Value::Dict(d) = part {
+                            flatten_items(&d.borrow(), prefix, depth, walk, out)?;
+                        }
+                    }
+                }
+                _ => {}
+            }
+            flatten_items(&o.items.borrow(), prefix, depth, walk, out)?;
+            for (i, v) in o.list.borrow().iter().enumerate() {
+                let name = join(prefix, &i.to_string(), walk)?;
                 flatten(v, &name, depth + 1, walk, out)?;
             }
         }
@@ -136,6 +169,26 @@ fn flatten(
             }
         }
         _ => {}
+    }
+    Ok(())
+}
+
+/// Flattens the items of a dict (string and integer keys) under `prefix`.
+fn flatten_items(
+    items: &[(Value, Value)],
+    prefix: &str,
+    depth: usize,
+    walk: &mut Walk,
+    out: &mut Vec<(String, Found)>,
+) -> Result<(), String> {
+    for (k, v) in items {
+        let key = match k {
+            Value::Str(s) => s.to_string(),
+            Value::Int(i) => i.to_string(),
+            _ => continue,
+        };
+        let name = join(prefix, &key, walk)?;
+        flatten(v, &name, depth + 1, walk, out)?;
     }
     Ok(())
 }
@@ -190,7 +243,10 @@ fn not_zip_problem(bytes: &[u8]) -> String {
 }
 
 /// Indexes one `torch.save` archive; tensors point at file index `file_index`.
-fn index_file(file: &SourceFile, file_index: usize) -> Result<Vec<TensorInfo>, CheckpointError> {
+fn index_file(
+    file: &SourceFile,
+    file_index: usize,
+) -> Result<(Vec<TensorInfo>, Vec<StandIn>), CheckpointError> {
     let path = &file.path;
     let bytes = file.bytes();
     if bytes.is_empty() {
@@ -240,16 +296,25 @@ fn index_file(file: &SourceFile, file_index: usize) -> Result<Vec<TensorInfo>, C
         ));
     }
     let pkl_bytes = archive::member_prefix(file, pkl, pickle::MAX_PICKLE_BYTES)?;
-    let root = pickle::load(&pkl_bytes).map_err(|e| CheckpointError::invalid(path, e))?;
+    let loaded =
+        pickle::load_with_stand_ins(&pkl_bytes).map_err(|e| CheckpointError::invalid(path, e))?;
+    let root = loaded.value;
 
     let mut refs = Vec::new();
     flatten(&root, "", 0, &mut Walk::default(), &mut refs)
         .map_err(|e| CheckpointError::invalid(path, e))?;
 
     let mut out = Vec::with_capacity(refs.len());
-    for (name, r) in refs {
+    for (name, found) in refs {
         let bad = |what: String| {
             CheckpointError::invalid(path, format!("tensor `{}`: {what}", shown(&name)))
+        };
+        let r = match found {
+            Found::Torch(r) => r,
+            Found::Numpy(a) => {
+                out.push(numpy_tensor(name, a, file_index));
+                continue;
+            }
         };
         let member_name = format!("{prefix}data/{}", r.key);
         let member = by_name.get(member_name.as_str()).ok_or_else(|| {
@@ -316,16 +381,74 @@ fn index_file(file: &SourceFile, file_index: usize) -> Result<Vec<TensorInfo>, C
             big_endian,
         });
     }
-    Ok(out)
+    Ok((out, loaded.stand_ins))
+}
+
+/// The tensor of a NumPy array pickled inside the checkpoint: its bytes are copied out
+/// of the pickle ([`super::Storage::Owned`]), checked against its shape by
+/// [`pickle::ndarray_of`].
+fn numpy_tensor(name: String, a: NdArray, file_index: usize) -> TensorInfo {
+    let strides = if a.fortran && a.shape.len() > 1 {
+        let mut s = vec![1usize; a.shape.len()];
+        for i in 1..a.shape.len() {
+            s[i] = s[i - 1].saturating_mul(a.shape[i - 1]);
+        }
+        (!is_c_contiguous(&a.shape, &s)).then_some(s)
+    } else {
+        None
+    };
+    TensorInfo {
+        name,
+        dtype: a.dtype,
+        shape: a.shape,
+        file: file_index,
+        storage: super::Storage::Owned(super::OwnedBytes(std::sync::Arc::from(&*a.data))),
+        element_offset: 0,
+        strides,
+        big_endian: a.big_endian,
+    }
+}
+
+/// Warnings for the globals stood in for that posaudit does not know to be plain data.
+fn stand_in_warnings(path: &Path, stand_ins: &[StandIn]) -> Vec<String> {
+    stand_ins
+        .iter()
+        .filter(|s| !s.known)
+        .map(|s| {
+            let module = s.global.rsplit_once('.').map(|(m, _)| m).unwrap_or(&s.global);
+            format!(
+                "{}: pickled global `{}` ({} object{}) was read as inert data; a full unpickler (pickle.load, torch.load with weights_only=False) would import module `{}` and run its code to rebuild it",
+                path.display(),
+                shown(&s.global),
+                s.count,
+                if s.count == 1 { "" } else { "s" },
+                shown(module)
+            )
+        })
+        .collect()
+}
+
+/// Adds the stand-ins of one file to the checkpoint's, summing counts by global.
+fn merge_stand_ins(all: &mut Vec<StandIn>, more: Vec<StandIn>) {
+    for s in more {
+        match all.iter_mut().find(|a| a.global == s.global) {
+            Some(a) => a.count += s.count,
+            None => all.push(s),
+        }
+    }
 }
 
 /// Opens one or more `torch.save` archives (a single file, or shards).
 pub fn open_files(files: Vec<SourceFile>) -> Result<Opened, CheckpointError> {
     let mut tensors = Vec::new();
-    for (i, file) in files.iter().enumerate() {
-        tensors.extend(index_file(file, i)?);
-    }
+    let mut stand_ins = Vec::new();
     let mut warnings = Vec::new();
+    for (i, file) in files.iter().enumerate() {
+        let (t, s) = index_file(file, i)?;
+        tensors.extend(t);
+        warnings.extend(stand_in_warnings(&file.path, &s));
+        merge_stand_ins(&mut stand_ins, s);
+    }
     if tensors.is_empty() {
         warnings.push(format!(
             "{}: the pickled object holds no tensors",
@@ -341,6 +464,7 @@ pub fn open_files(files: Vec<SourceFile>) -> Result<Opened, CheckpointError> {
         tensors,
         hints: None,
         warnings,
+        stand_ins,
     })
 }
 

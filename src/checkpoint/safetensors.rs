@@ -135,6 +135,7 @@ pub fn open_files(files: Vec<SourceFile>) -> Result<Opened, CheckpointError> {
         tensors,
         hints: None,
         warnings: Vec::new(),
+        stand_ins: Vec::new(),
     })
 }
 

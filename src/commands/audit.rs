@@ -26,6 +26,8 @@ pub struct AuditOptions {
     pub tables: Vec<String>,
     /// Threads for the linear algebra of large tables (at least 1).
     pub threads: usize,
+    /// The weight file to read when `path` is a folder holding several (`--file`).
+    pub file: Option<String>,
 }
 
 impl Default for AuditOptions {
@@ -34,6 +36,7 @@ impl Default for AuditOptions {
             path: PathBuf::new(),
             tables: Vec::new(),
             threads: 1,
+            file: None,
         }
     }
 }
@@ -45,7 +48,7 @@ pub fn run(
     progress: &mut dyn FnMut(&str, usize, usize),
 ) -> Result<AuditReport> {
     crate::linalg::set_threads(options.threads.max(1));
-    let ckpt = super::open_for_audit(&options.path)?;
+    let ckpt = super::open_for_audit(&options.path, options.file.as_deref())?;
     audit_opened(&ckpt, &options.tables, progress)
 }
 

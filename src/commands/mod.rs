@@ -17,9 +17,9 @@ use std::path::Path;
 use crate::checkpoint::Checkpoint;
 use crate::error::Result;
 
-/// Opens a checkpoint read-only.
-fn open(path: &Path) -> Result<Checkpoint> {
-    Ok(Checkpoint::open(path)?)
+/// Opens a checkpoint read-only; `file` picks one weight file of a folder (`--file`).
+fn open(path: &Path, file: Option<&str>) -> Result<Checkpoint> {
+    Ok(Checkpoint::open_choosing(path, file)?)
 }
 
 /// File name endings of the weight files a checkpoint folder may hold.
@@ -55,11 +55,46 @@ fn checkpoint_subfolders(dir: &Path) -> Vec<String> {
     out
 }
 
+/// The arguments of `posaudit compare` for the sub-folders `subs` of `dir`, in name order
+/// (at most 8 listed).
+fn compare_command(dir: &Path, subs: &[String]) -> String {
+    let mut s = subs
+        .iter()
+        .take(8)
+        .map(|sub| crate::checkpoint::shown(&dir.join(sub).display().to_string()))
+        .collect::<Vec<_>>()
+        .join(" ");
+    if subs.len() > 8 {
+        s.push_str(" …");
+    }
+    s
+}
+
 /// Opens one checkpoint for `audit`. A run folder (no weights of its own, checkpoints in
 /// sub-folders) is refused with a sentence that says what to do instead.
-fn open_for_audit(path: &Path) -> Result<Checkpoint> {
-    match Checkpoint::open(path) {
-        Ok(c) => Ok(c),
+fn open_for_audit(path: &Path, file: Option<&str>) -> Result<Checkpoint> {
+    match Checkpoint::open_choosing(path, file) {
+        Ok(mut c) => {
+            let subs = if path.is_dir() {
+                checkpoint_subfolders(path)
+            } else {
+                Vec::new()
+            };
+            if !subs.is_empty() {
+                let read = c
+                    .folder
+                    .as_ref()
+                    .map(|f| f.files.join(", "))
+                    .unwrap_or_default();
+                c.warnings.push(format!(
+                    "{}: a run folder: besides {read} (the file audited) it holds {} checkpoints in sub-folders; compare them: `posaudit compare {}`",
+                    path.display(),
+                    subs.len(),
+                    compare_command(path, &subs)
+                ));
+            }
+            Ok(c)
+        }
         Err(e) if path.is_dir() => {
             let subs = checkpoint_subfolders(path);
             if subs.is_empty() {
@@ -67,8 +102,9 @@ fn open_for_audit(path: &Path) -> Result<Checkpoint> {
             }
             let listed = subs.iter().take(3).cloned().collect::<Vec<_>>().join(", ");
             let more = if subs.len() > 3 { ", …" } else { "" };
+            let command = compare_command(path, &subs);
             Err(crate::error::Error::Usage(format!(
-                "{}: a run folder holding {} checkpoints ({listed}{more}), not one checkpoint; audit one of them (e.g. `posaudit audit {}`), or compare them with `posaudit compare`",
+                "{}: a run folder holding {} checkpoints ({listed}{more}), not one checkpoint; audit one of them (e.g. `posaudit audit {}`), or compare them: `posaudit compare {command}`",
                 path.display(),
                 subs.len(),
                 path.join(&subs[0]).display()

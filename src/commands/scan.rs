@@ -15,12 +15,14 @@ pub struct ScanOptions {
     pub path: PathBuf,
     /// Tensor names to classify even if the detector passes them over.
     pub tables: Vec<String>,
+    /// The weight file to read when `path` is a folder holding several (`--file`).
+    pub file: Option<String>,
 }
 
 /// Opens the checkpoint, detects its position tables (plus the forced names) and builds
 /// the scan document. Errors are one line naming the file and the problem.
 pub fn run(options: &ScanOptions) -> Result<ScanReport> {
-    let ckpt = super::open(&options.path)?;
+    let ckpt = super::open(&options.path, options.file.as_deref())?;
     scan_opened(&ckpt, &options.tables)
 }
 

@@ -19,7 +19,8 @@ pub mod scan;
 
 use serde::Serialize;
 
-use crate::checkpoint::{Checkpoint, Format};
+use crate::checkpoint::pickle::StandIn;
+use crate::checkpoint::{Checkpoint, FolderChoice, Format};
 
 pub use finding::{Finding, FindingCode, FindingCounts, Severity};
 
@@ -36,6 +37,14 @@ pub struct CheckpointSummary {
     pub tensors: usize,
     /// Total bytes of the files.
     pub bytes: u64,
+    /// Pickled objects that were read as inert data instead of being rebuilt (a training
+    /// checkpoint's `argparse.Namespace`, paths, a trainer's own classes): each global's
+    /// dotted name, how many objects were built from it, and whether posaudit knows it
+    /// to hold data only (the unknown ones are also warnings). Empty for other formats.
+    pub stand_ins: Vec<StandIn>,
+    /// How a folder was resolved to the files read (hub snapshot, file chosen and why,
+    /// the other weight files); `null` for a file path.
+    pub folder: Option<FolderChoice>,
 }
 
 impl CheckpointSummary {
@@ -47,6 +56,53 @@ impl CheckpointSummary {
             files: ckpt.files.len(),
             tensors: ckpt.tensors.len(),
             bytes: ckpt.total_bytes(),
+            stand_ins: ckpt.stand_ins.clone(),
+            folder: ckpt.folder.clone(),
         }
+    }
+
+    /// Lines saying how a folder was resolved, when there is something to say: the hub
+    /// snapshot read, and the file chosen when the folder holds other weight files.
+    pub fn folder_lines(&self) -> Vec<String> {
+        let Some(f) = &self.folder else {
+            return Vec::new();
+        };
+        let mut out = Vec::new();
+        if let (Some(snap), Some(why)) = (&f.snapshot, &f.snapshot_reason) {
+            out.push(format!("hub cache: read {snap} ({why})"));
+        }
+        if !f.others.is_empty() {
+            out.push(format!(
+                "read {} ({}); also in the folder, not read: {} (pick one with --file NAME)",
+                f.files.join(", "),
+                f.reason,
+                f.others.join(", ")
+            ));
+        }
+        out
+    }
+
+    /// One sentence listing the stand-ins (`argparse.Namespace ×1, __main__.Config ×1
+    /// (unknown)`), or `None` when there are none: the line both renderers print.
+    pub fn stand_ins_line(&self) -> Option<String> {
+        if self.stand_ins.is_empty() {
+            return None;
+        }
+        let list = self
+            .stand_ins
+            .iter()
+            .map(|s| {
+                format!(
+                    "{} ×{}{}",
+                    s.global,
+                    s.count,
+                    if s.known { "" } else { " (unknown)" }
+                )
+            })
+            .collect::<Vec<_>>()
+            .join(", ");
+        Some(format!(
+            "pickled objects read as inert data (never run): {list}"
+        ))
     }
 }

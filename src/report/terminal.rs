@@ -28,6 +28,12 @@ pub fn scan(report: &ScanReport) -> String {
     if let Some(cfg) = &report.config {
         let _ = writeln!(out, "config ({}): {}", cfg.source, cfg.summary());
     }
+    for line in c.folder_lines() {
+        let _ = writeln!(out, "{line}");
+    }
+    if let Some(line) = c.stand_ins_line() {
+        let _ = writeln!(out, "{line}");
+    }
     for w in &report.warnings {
         let _ = writeln!(out, "warning: {w}");
     }
@@ -88,6 +94,12 @@ pub fn audit(report: &AuditReport) -> String {
         s.warning,
         s.info
     );
+    for line in c.folder_lines() {
+        let _ = writeln!(out, "{line}");
+    }
+    if let Some(line) = c.stand_ins_line() {
+        let _ = writeln!(out, "{line}");
+    }
     for w in &report.warnings {
         let _ = writeln!(out, "warning: {w}");
     }

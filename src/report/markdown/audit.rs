@@ -25,6 +25,12 @@ pub fn render(report: &AuditReport) -> (String, Vec<Figure>) {
         c.tensors,
         human_bytes(c.bytes)
     );
+    for line in c.folder_lines() {
+        let _ = writeln!(md, "{}.\n", escape(&line));
+    }
+    if let Some(line) = c.stand_ins_line() {
+        let _ = writeln!(md, "{}.\n", escape(&line));
+    }
     if let Some(cfg) = &report.config {
         let _ = writeln!(
             md,

@@ -272,6 +272,8 @@ mod tests {
                         files: 1,
                         tensors: 2,
                         bytes: 100,
+                        stand_ins: vec![],
+                        folder: None,
                     },
                 })
                 .collect(),
