@@ -35,7 +35,7 @@ use serde::Serialize;
 
 use crate::checkpoint::{Checkpoint, CheckpointError, TensorInfo};
 
-mod names;
+pub(crate) mod names;
 
 use names::NameHint;
 

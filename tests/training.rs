@@ -272,3 +272,34 @@ fn real_mpnet_table_reports_its_never_indexed_row_0() {
     assert_eq!(row0["severity"], "info");
     assert!(row0["message"].as_str().unwrap().contains("never indexed"));
 }
+
+#[test]
+fn optimizer_second_moment_is_direct_evidence_and_agrees_with_the_statistics() {
+    // Truth: the torch.save training checkpoint of step 800 holds AdamW's state; the
+    // position table is parameter `position_table_optimizer_index` (1); rows 256..512
+    // never got a gradient (saves["decoder/step-0800"].never_trained_rows), so their
+    // exp_avg_sq is exactly zero (torch.optim.AdamW starts it at 0).
+    let truth = truth();
+    let model = &truth["models"]["decoder"];
+    let index = model["training_checkpoint"]["position_table_optimizer_index"]
+        .as_u64()
+        .unwrap();
+    let never = pairs(&model["saves"]["decoder/step-0800"]["never_trained_rows"]);
+    let doc = audit("decoder/training-step-0800.pt");
+    let t = table(&doc, &format!("model.{}", model["table"].as_str().unwrap()));
+    let opt = &t["optimizer"];
+    assert_eq!(opt["tensor"], format!("optimizer.state.{index}.exp_avg_sq"));
+    assert_eq!(pairs(&opt["no_gradient_rows"]), never);
+    assert!(pairs(&opt["missed_by_statistics"]).is_empty());
+    assert!(pairs(&opt["contradicted_by_moments"]).is_empty());
+    let f = t["findings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|f| f["code"] == "no-gradient-rows")
+        .expect("a no-gradient-rows finding");
+    assert_eq!(f["severity"], "info");
+    assert_eq!(pairs(&f["ranges"]), never);
+    // The moments themselves are never listed as tables.
+    assert_eq!(doc["tables"].as_array().unwrap().len(), 1);
+}

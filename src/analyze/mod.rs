@@ -7,6 +7,7 @@ pub mod decay;
 pub mod grid;
 pub mod hygiene;
 mod lagged;
+pub mod moments;
 pub mod neighbours;
 pub mod norms;
 pub mod periodicity;

@@ -123,6 +123,22 @@ pub fn audit_opened(
             Kind::LearnedAbsolute | Kind::FixedSinusoidal => {
                 let table = read_2d(ckpt, t)?;
                 one_d::audit_table(&mut audit, &table, &t.dtype, config, &mut warnings);
+                // A training checkpoint's optimizer state: the table's second moment.
+                if d.kind == Kind::LearnedAbsolute
+                    && let Some(name) = crate::analyze::moments::second_moment_for(
+                        &t.shape,
+                        ckpt.tensors
+                            .iter()
+                            .filter(|x| detect::names::optimizer_state(&x.name).is_some())
+                            .map(|x| (x.name.as_str(), x.shape.as_slice())),
+                    )
+                    && let Some(m) = ckpt.tensor(name)
+                {
+                    let moments = read_2d(ckpt, m)?;
+                    if moments.dim() == table.dim() {
+                        one_d::optimizer_moments(&mut audit, name, &moments);
+                    }
+                }
             }
         }
         audit

@@ -96,6 +96,8 @@ pub struct TableAudit {
     pub layers: Option<LayerAgreement>,
     /// When this table repeats another one's analysis (per-layer rotary vectors), its name.
     pub same_as: Option<String>,
+    /// The optimizer's second moment of this table, when the checkpoint holds it.
+    pub optimizer: Option<crate::analyze::moments::MomentEvidence>,
 }
 
 impl TableAudit {
@@ -122,6 +124,7 @@ impl TableAudit {
             position_ids: None,
             layers: None,
             same_as: None,
+            optimizer: None,
         }
     }
 

@@ -60,6 +60,9 @@ finding_codes! {
     LowPrecision => "low-precision",
     /// Rows unchanged between two checkpoints (compare).
     UnchangedRows => "unchanged-rows",
+    /// Rows whose optimizer second moment is exactly zero: no gradient ever (audit of a
+    /// training checkpoint that holds the optimizer state).
+    NoGradientRows => "no-gradient-rows",
     /// NaN or infinite values.
     NonFinite => "non-finite",
     /// Rows that move gradually from trained structure towards noise.

@@ -504,3 +504,69 @@ fn fmt_num(x: f64) -> String {
 fn fmt_opt(x: Option<f64>) -> String {
     x.map(|v| format!("{v:.3}")).unwrap_or_else(|| "n/a".into())
 }
+
+/// Adds what the optimizer's second moment (`tensor`, the table's shape) says: rows
+/// that never received a gradient, as direct evidence, checked against the untrained
+/// verdict of the statistics.
+pub fn optimizer_moments(audit: &mut TableAudit, tensor: &str, second_moment: &Array2<f64>) {
+    let untrained: Vec<[usize; 2]> = audit
+        .untrained
+        .as_ref()
+        .map(|u| u.ranges.clone())
+        .unwrap_or_default();
+    let ev = crate::analyze::moments::evidence(tensor, second_moment.view(), &untrained);
+    let list = |r: &[[usize; 2]]| {
+        r.iter()
+            .take(4)
+            .map(|x| range_text(*x))
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    if !ev.no_gradient_rows.is_empty() {
+        let rows: usize = ev.no_gradient_rows.iter().map(|r| r[1] - r[0]).sum();
+        let agreement = if ev.missed_by_statistics.is_empty() {
+            "The statistical untrained verdict finds every one of them.".to_string()
+        } else {
+            format!(
+                "The statistics alone missed {} of them.",
+                list(&ev.missed_by_statistics)
+            )
+        };
+        let severity = if ev.missed_by_statistics.is_empty() {
+            Severity::Info
+        } else {
+            Severity::Warning
+        };
+        audit.findings.push(
+            Finding::new(
+                severity,
+                FindingCode::NoGradientRows,
+                format!(
+                    "{} ({rows} rows) never received a gradient: the optimizer's second moment `{tensor}` is exactly zero there (direct evidence from the training state). {agreement}",
+                    list(&ev.no_gradient_rows)
+                ),
+            )
+            .ranges(ev.no_gradient_rows.iter().copied())
+            .evidence(format!(
+                "Adam/AdamW keep v = β₂·v + (1 − β₂)·g² from v = 0: a row keeps v = 0 exactly only if its gradient was zero at every step; rows with v > 0 elsewhere: {}",
+                second_moment.nrows() - rows
+            ))
+            .limits("Covers the steps since this optimizer state was created (a restart with a fresh optimizer forgets earlier steps); the match of moment to table is by shape, the only parameter of this shape in the state."),
+        );
+    }
+    if !ev.contradicted_by_moments.is_empty() {
+        audit.findings.push(
+            Finding::warning(
+                FindingCode::NoGradientRows,
+                format!(
+                    "{} look untrained to the statistics but received gradients (the optimizer's second moment `{tensor}` is nonzero there): trust the optimizer state.",
+                    list(&ev.contradicted_by_moments)
+                ),
+            )
+            .ranges(ev.contradicted_by_moments.iter().copied())
+            .evidence("second moment > 0 in these rows")
+            .limits("Rows can receive tiny gradients and still look like initial noise; they were indexed, if rarely."),
+        );
+    }
+    audit.optimizer = Some(ev);
+}
