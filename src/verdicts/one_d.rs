@@ -265,7 +265,7 @@ fn learned(
     let ev = &report.evidence;
     let decay_text = match &ev.decay {
         Some(dk) => format!(
-            "; their RMS is {:.4} x the init std (95 % interval {:.4}..{:.4}, {} rows{}): what decoupled weight decay alone does to rows that never get a gradient",
+            "; their RMS is {:.4} x the init std (95 % interval {:.4}..{:.4}, {} rows{}){}",
             dk.factor,
             dk.interval[0],
             dk.interval[1],
@@ -274,6 +274,13 @@ fn learned(
                 ", one common factor"
             } else {
                 "; the rows do NOT agree on one factor"
+            },
+            if dk.interval[0] <= 1.0 && 1.0 <= dk.interval[1] {
+                ": the init scale itself, no sign of weight decay"
+            } else if dk.interval[1] < 1.0 {
+                ": shrunk by one factor, as decoupled weight decay alone shrinks rows that never get a gradient"
+            } else {
+                ": above the init scale, which decay cannot produce (another init than the config's?)"
             }
         ),
         None => String::new(),

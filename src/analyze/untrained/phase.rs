@@ -95,11 +95,12 @@ pub(super) fn phase_boundary(
             continue;
         }
         // The fits leave GAP rows out on each side, so a clean step scores alike at the
-        // splits around it: the row is the middle of the run of splits next to m whose
-        // effect is within 10 % of m's.
+        // splits around it: the run of splits next to m (within 2·GAP) that pass the same
+        // thresholds holds the step.
         let near = |q: usize| {
-            step_at(&log_norm, q, w, 1)
-                .is_some_and(|(s, e)| e >= 0.9 * effect && s.signum() == step.signum())
+            step_at(&log_norm, q, w, 1).is_some_and(|(s, e)| {
+                e > MIN_EFFECT && s.abs() > MIN_LOG_STEP && s.signum() == step.signum()
+            })
         };
         let mut lo = m;
         while lo > m.saturating_sub(2 * GAP) && near(lo - 1) {
@@ -109,7 +110,32 @@ pub(super) fn phase_boundary(
         while hi < m + 2 * GAP && near(hi + 1) {
             hi += 1;
         }
-        let m = (lo + hi) / 2;
+        // Within that run, the split of the least absolute deviation from two levels
+        // (each side's median) over the rows the windows cover.
+        let (from, to) = (lo.saturating_sub(w), (hi + w).min(log_norm.len()));
+        let cost = |q: usize| {
+            let side = |a: usize, b: usize| {
+                let v = &log_norm[a..b];
+                let med = median(v.to_vec()).unwrap_or(0.0);
+                v.iter().map(|x| (x - med).abs()).sum::<f64>()
+            };
+            // The row on each side of the split is left out: a spike or a transitional
+            // row.
+            side(from, q - 1) + side(q + 1, to)
+        };
+        // Of the tied splits, the middle one.
+        let costs: Vec<(usize, f64)> = (lo.max(1)..=hi).map(|q| (q, cost(q))).collect();
+        // Costs closer than one row's typical deviation (the robust sd of ln norm about
+        // its local level) are ties.
+        let least = costs.iter().map(|c| c.1).fold(f64::INFINITY, f64::min);
+        let spread = step_at(&log_norm, m, w, 1).map_or(0.0, |(st, e)| st.abs() / e)
+            / (8.0 / w as f64).sqrt();
+        let tied: Vec<usize> = costs
+            .iter()
+            .filter(|c| c.1 <= least + spread)
+            .map(|c| c.0)
+            .collect();
+        let m = tied.get(tied.len() / 2).copied().unwrap_or(m);
         let (before, after) = fitted_ends(&log_norm, m, w).unwrap_or((f64::NAN, f64::NAN));
         best = Some(PhaseBoundary {
             row: rows[m],
