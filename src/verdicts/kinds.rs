@@ -116,11 +116,19 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
         } else {
             None
         };
-        // T5 initialises the bias with normal(0, factor·d_model^-0.5), factor 1.0
+        // The config's initializer_range when given (MPNet-style configs); else T5's
+        // normal(0, initializer_factor·d_model^-0.5), factor 1.0 by default
         // (check-values §5.1).
         let init_std = config
-            .and_then(|c| c.hidden_size.as_ref())
-            .map(|h| (h.value as f64).powf(-0.5));
+            .and_then(|c| c.initializer_range.as_ref().map(|h| h.value))
+            .or_else(|| {
+                config.and_then(|c| {
+                    let factor = c.initializer_factor.as_ref().map_or(1.0, |f| f.value);
+                    c.hidden_size
+                        .as_ref()
+                        .map(|h| factor * (h.value as f64).powf(-0.5))
+                })
+            });
         relative::analyze_t5(
             table.view(),
             &RelativeHints {
@@ -138,30 +146,106 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
             format!("The relative-bias analysis could not run fully: {p}."),
         ));
     }
+    let factor_text = |e: &crate::analyze::decay::DecayEstimate| {
+        format!(
+            "common factor f = {:.3} (95% interval {:.3}..{:.3}) of the init std {:.4}",
+            e.factor, e.interval[0], e.interval[1], e.init_std
+        )
+    };
+    if !a.looks_like_init && !a.never_trained_ranges.is_empty() {
+        let describe = |r: &relative::NeverTrainedRange| {
+            let d = |x: i64| format!("{x}");
+            let span = match r.farthest_distance {
+                Some(f) if r.nearest_distance < 0 => {
+                    format!("distances {}..={}", d(f), d(r.nearest_distance))
+                }
+                Some(f) => format!("distances {}..={}", d(r.nearest_distance), d(f)),
+                None if r.nearest_distance < 0 => format!("distances ≤ {}", r.nearest_distance),
+                None => format!("distances ≥ {}", r.nearest_distance),
+            };
+            format!("buckets {}..{} ({span})", r.start, r.end)
+        };
+        let parts: Vec<String> = a.never_trained_ranges.iter().map(describe).collect();
+        let shortest = a
+            .never_trained_ranges
+            .iter()
+            .map(|r| r.nearest_distance.unsigned_abs())
+            .min()
+            .unwrap_or(0);
+        let est = a.never_trained_factor.as_ref();
+        audit.findings.push(
+            Finding::warning(
+                FindingCode::UntrainedRows,
+                format!(
+                    "Relative-bias {} never trained: training probably never used sequences longer than {} tokens (no distance of {} or more).",
+                    parts.join(" and "),
+                    shortest,
+                    shortest
+                ),
+            )
+            .ranges(a.never_trained_ranges.iter().map(|r| [r.start, r.end]))
+            .evidence(format!(
+                "{} buckets at the far end of their direction hold zero-mean noise of one common scale, {}; the nearer buckets are far from it (mean or spread beyond the 0.999 quantile of that noise)",
+                a.never_trained.len(),
+                est.map(factor_text).unwrap_or_default()
+            ))
+            .limits("Decided from the values alone: a bucket trained for very few steps can still look like its init. f < 1 is expected from weight decay; f is estimated from a few values per bucket."),
+        );
+    }
     for row in &a.unreachable_rows {
+        let shrink = row
+            .rms_over_init_std
+            .map(|f| format!("{f:.3}"))
+            .unwrap_or_else(|| "unknown".into());
+        let agree = match (row.factor_z_vs_never_trained, &a.never_trained_factor) {
+            (Some(z), Some(e)) => format!(
+                "; never-trained buckets' factor {:.3}, disagreement z {z:.2}",
+                e.factor
+            ),
+            _ => String::new(),
+        };
         match row.looks_like_init {
             Some(false) => audit.findings.push(Finding::warning(FindingCode::UnreachableBucketAltered, format!(
-                    "Bucket {} is never produced by the bucket function, so it cannot have been trained, yet it does not look like its initial values.",
+                    "Bucket {} is never produced by the bucket function, so it cannot have been trained, yet it is not noise of the init's shape at any scale.",
                     row.bucket
                 ))
 .rows([row.bucket, row.bucket + 1])
 .evidence(format!(
-                    "rms {:.4}, mean {:.4}; reachable rows' median rms {:.4}; rms / init std {}",
+                    "rms {:.4}, mean {:.4} (mean statistic h·mean²/rms² {:.2}, noise: below 10.8); reachable rows' median rms {:.4}; rms / init std {shrink}{agree}",
                     row.rms,
                     row.mean,
+                    row.mean_statistic,
                     row.reachable_rms_median,
-                    row.rms_over_init_std.map(|v| format!("{v:.2}")).unwrap_or_else(|| "unknown".into())
                 ))
 .limits("The row was written by something other than training (a conversion, a different init, or an edit); it has no effect on attention.")),
-            Some(true) => audit.findings.push(Finding::info(FindingCode::UnreachableBucket, format!("Bucket {} is never produced by the bucket function and still holds its initial values, as expected.", row.bucket))
+            Some(true) => audit.findings.push(Finding::info(FindingCode::UnreachableBucket, format!("Bucket {} is never produced by the bucket function and still holds its initial values (init noise times a factor {shrink}; weight decay shrinks untrained values), as expected.", row.bucket))
 .rows([row.bucket, row.bucket + 1])
-.evidence(format!("rms {:.4}, mean {:.4}", row.rms, row.mean))
+.evidence(format!("rms {:.4}, mean {:.4}, rms / init std {shrink}{agree}", row.rms, row.mean))
 .limits("Expected for this bucket layout; nothing to do.")),
             None => {}
         }
     }
     if !a.untrained_heads.is_empty() {
-        audit.findings.push(Finding::warning(FindingCode::UntrainedHeads, format!("Head(s) {:?} show no trend with distance and look like initial noise.", a.untrained_heads))
+        let message = if a.looks_like_init {
+            format!(
+                "The whole table looks like its initialization: every reachable bucket is zero-mean noise of one scale ({}); heads {:?} are untrained.",
+                a.never_trained_factor
+                    .as_ref()
+                    .map(factor_text)
+                    .unwrap_or_default(),
+                a.untrained_heads
+            )
+        } else {
+            format!(
+                "Head(s) {:?} show no trend with distance and look like initial noise.",
+                a.untrained_heads
+            )
+        };
+        let mut f = Finding::warning(FindingCode::UntrainedHeads, message);
+        if a.looks_like_init {
+            f = f.ranges(a.never_trained_ranges.iter().map(|r| [r.start, r.end]));
+        }
+        audit.findings.push(f
 .evidence(a
                 .head_trends
                 .iter()
