@@ -177,3 +177,28 @@ fn mpnet_unreachable_bucket_is_decayed_init_not_altered() {
     let ratio = row["rms_over_init_std"].as_f64().unwrap();
     assert!((ratio - 0.168).abs() < 0.002, "{ratio}");
 }
+
+#[test]
+fn vit_trained_grid_gets_no_untrained_finding_and_its_init_does() {
+    // truth.json: every row of vit/final trained (600 AdamW steps); vit/init is the
+    // initialisation (trunc_normal std 0.02, initializer_range 0.02 in config.json).
+    let truth = truth();
+    let vit = &truth["models"]["vit"];
+    let name = vit["table"].as_str().unwrap();
+    let cells = vit["grid"][0].as_u64().unwrap() * vit["grid"][1].as_u64().unwrap();
+    let extra = vit["extra_rows"][0][1].as_u64().unwrap() as usize;
+    let doc = audit(fixture("training/vit/final").to_str().unwrap());
+    let t = table(&doc, name);
+    for code in ["untrained-rows", "untrained-tail", "partially-trained"] {
+        assert!(
+            findings(t, code).is_empty(),
+            "vit/final {code}: {:?}",
+            t["findings"]
+        );
+    }
+    let doc = audit(fixture("training/vit/init").to_str().unwrap());
+    let t = table(&doc, name);
+    let rows = findings(t, "untrained-rows");
+    assert_eq!(rows.len(), 1, "vit/init: {:?}", t["findings"]);
+    assert_eq!(ranges(rows[0]), vec![[extra, extra + cells as usize]]);
+}

@@ -42,7 +42,8 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
         );
         return;
     };
-    let a = grid::analyze_grid(table.view(), &layout);
+    let init_std = config.and_then(|c| c.initializer_range.as_ref().map(|h| h.value));
+    let a = grid::analyze_grid_init(table.view(), &layout, init_std);
     let extra = layout.extra_rows;
     let mut verdict = format!(
         "{}x{} grid + {} extra row(s)",
@@ -74,18 +75,47 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
             100.0 * s.additive
         );
     }
-    if a.odd_patch_count > 0 {
-        let rows: Vec<usize> = a.odd_patches.iter().map(|p| p.table_row).collect();
+    let outliers: Vec<usize> = a
+        .odd_patches
+        .iter()
+        .filter(|p| p.reason == "norm-outlier")
+        .map(|p| p.table_row)
+        .collect();
+    if !outliers.is_empty() {
+        audit.findings.push(
+            Finding::info(
+                FindingCode::NormOutlier,
+                format!(
+                    "{} patch(es) have a norm far from the others (table rows {:?}).",
+                    outliers.len(),
+                    outliers
+                ),
+            )
+            .ranges(outliers.iter().map(|&r| [r, r + 1]))
+            .evidence(format!(
+                "median patch norm {:.4}; more than 5 robust standard deviations away",
+                a.norm_median.unwrap_or(f64::NAN)
+            ))
+            .limits("A norm outlier moved far from the init: it was trained, not left untrained."),
+        );
+    }
+    let untrained_patches: Vec<&grid::OddPatch> = a
+        .odd_patches
+        .iter()
+        .filter(|p| p.reason != "norm-outlier")
+        .collect();
+    if !untrained_patches.is_empty() {
+        let rows: Vec<usize> = untrained_patches.iter().map(|p| p.table_row).collect();
         let first = rows.iter().min().copied().unwrap_or(extra);
         let last = rows.iter().max().copied().unwrap_or(extra) + 1;
         let noise_like = a.noise_like_fraction.unwrap_or(0.0);
         audit.findings.push(Finding::warning(FindingCode::UntrainedRows, format!(
                 "{} of {} patches look unlike their grid neighbours (e.g. patch ({}, {}): {}).",
-                a.odd_patch_count,
+                untrained_patches.len(),
                 layout.height * layout.width,
-                a.odd_patches.first().map(|p| p.row).unwrap_or(0),
-                a.odd_patches.first().map(|p| p.col).unwrap_or(0),
-                a.odd_patches.first().map(|p| p.reason.as_str()).unwrap_or("")
+                untrained_patches.first().map(|p| p.row).unwrap_or(0),
+                untrained_patches.first().map(|p| p.col).unwrap_or(0),
+                untrained_patches.first().map(|p| p.reason.as_str()).unwrap_or("")
             ))
 .rows([first, last])
 .evidence(format!("noise-like share of patches {:.2}; median patch norm {:.4}", noise_like, a.norm_median.unwrap_or(f64::NAN)))
@@ -116,19 +146,30 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
         } else {
             None
         };
-        // The config's initializer_range when given (MPNet-style configs); else T5's
+        // HF T5's own module (`…SelfAttention.relative_attention_bias`, a t5 model type
+        // or an initializer_factor) initialises the bias with
         // normal(0, initializer_factor·d_model^-0.5), factor 1.0 by default
-        // (check-values §5.1).
-        let init_std = config
-            .and_then(|c| c.initializer_range.as_ref().map(|h| h.value))
-            .or_else(|| {
-                config.and_then(|c| {
-                    let factor = c.initializer_factor.as_ref().map_or(1.0, |f| f.value);
-                    c.hidden_size
+        // (check-values §5.1); other families (MPNet: `encoder.relative_attention_bias`)
+        // use the config's initializer_range.
+        let t5_rule = audit.name.contains("SelfAttention.relative_attention_bias")
+            || config.is_some_and(|c| {
+                c.initializer_factor.is_some()
+                    || c.model_type
                         .as_ref()
-                        .map(|h| factor * (h.value as f64).powf(-0.5))
-                })
+                        .is_some_and(|m| m.to_ascii_lowercase().contains("t5"))
             });
+        let t5_std = config.and_then(|c| {
+            let factor = c.initializer_factor.as_ref().map_or(1.0, |f| f.value);
+            c.hidden_size
+                .as_ref()
+                .map(|h| factor * (h.value as f64).powf(-0.5))
+        });
+        let range = config.and_then(|c| c.initializer_range.as_ref().map(|h| h.value));
+        let init_std = if t5_rule {
+            t5_std.or(range)
+        } else {
+            range.or(t5_std)
+        };
         relative::analyze_t5(
             table.view(),
             &RelativeHints {
