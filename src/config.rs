@@ -57,6 +57,9 @@ pub struct ConfigHints {
     /// Standard deviation of the weight initializer.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub initializer_range: Option<Hint<f64>>,
+    /// Multiplier of the T5 family's initializers (`initializer_factor`; std = factor·d_model^−0.5).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub initializer_factor: Option<Hint<f64>>,
     /// Number of relative-attention buckets (T5 family).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub relative_buckets: Option<Hint<u64>>,
@@ -224,6 +227,7 @@ impl ConfigHints {
                 }),
             partial_rotary_factor: float(root, &["partial_rotary_factor", "rotary_pct"]),
             initializer_range: float(root, &["initializer_range", "init_std"]),
+            initializer_factor: float(root, &["initializer_factor"]),
             relative_buckets: uint(root, &["relative_attention_num_buckets"]),
             relative_max_distance: uint(root, &["relative_attention_max_distance"]),
             image_size: uint(root, &["image_size", "img_size"]),
@@ -255,6 +259,7 @@ impl ConfigHints {
             rope_scaling,
             partial_rotary_factor,
             initializer_range,
+            initializer_factor,
             relative_buckets,
             relative_max_distance,
             image_size,

@@ -210,18 +210,7 @@ fn contradictions(table: &Value, reference: &Value) -> Vec<String> {
 /// (checkpoint, table, finding code). Flip an entry off by deleting it once the fix is
 /// merged; the test fails if a listed contradiction no longer happens, so the list stays
 /// true.
-const KNOWN_CONTRADICTIONS: &[(&str, &str, &str)] = &[
-    // all-mpnet-base-v2: bucket 16 of the relative bias (the unreachable "negative
-    // distance 0") holds values of at most 0.006 (row norm 0.012) against an
-    // initial-scale norm of 0.069 (0.02 x sqrt(12)) and a median row norm of 6.5: it
-    // looks initial, yet src/analyze/relative.rs says it "does not look like its initial
-    // values".
-    (
-        "mpnet",
-        "encoder.relative_attention_bias.weight",
-        "unreachable-bucket-altered",
-    ),
-];
+const KNOWN_CONTRADICTIONS: &[(&str, &str, &str)] = &[];
 
 fn check(key: &str, path: &str) {
     let reference = reference();

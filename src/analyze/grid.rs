@@ -355,6 +355,21 @@ fn axis_components(effect: &Array2<f64>) -> Vec<AxisComponent> {
 /// Edge cases: a layout that does not match the row count, dim 0 or non-finite values
 /// set `problem`; constant grids give `separability: None`.
 pub fn analyze_grid(table: ArrayView2<f64>, layout: &GridLayout) -> GridAnalysis {
+    analyze_grid_init(table, layout, None)
+}
+
+/// [`analyze_grid`] with the initializer's std σ (config `initializer_range`). Trained
+/// patches of small, briefly trained grids are not smooth, so "unrelated to every
+/// neighbour" alone does not make a patch untrained: with σ known, a noise-like patch
+/// must also be at the init scale (RMS ≤ `INIT_SCALE_MAX`·σ; farther ones moved, so
+/// they were trained) and on the common scale that never-trained patches share
+/// (|ln RMS − common| ≤ `SCALE_Z`/√(2·dim), the common scale being the mode of the
+/// candidates' ln RMS), as in [`crate::analyze::untrained`].
+pub fn analyze_grid_init(
+    table: ArrayView2<f64>,
+    layout: &GridLayout,
+    init_std: Option<f64>,
+) -> GridAnalysis {
     let (rows, dim) = table.dim();
     let (h, w, e) = (layout.height, layout.width, layout.extra_rows);
     let mut out = GridAnalysis {
@@ -483,11 +498,11 @@ pub fn analyze_grid(table: ArrayView2<f64>, layout: &GridLayout) -> GridAnalysis
     out.norm_median = Some(median);
     let noise_bound = 4.0 / (dim as f64).sqrt();
     let (mut cos_sum, mut cos_n, mut noise_like, mut tested) = (0.0, 0usize, 0usize, 0usize);
+    let mut max_abs_of = vec![0.0f64; h * w];
+    let mut any_of = vec![false; h * w];
     for y in 0..h {
         for x in 0..w {
             let p = at(y, x);
-            let mut max_abs: f64 = 0.0;
-            let mut any = false;
             let neighbours = [
                 (y.wrapping_sub(1), x),
                 (y + 1, x),
@@ -502,15 +517,50 @@ pub fn analyze_grid(table: ArrayView2<f64>, layout: &GridLayout) -> GridAnalysis
                         norms[p],
                         norms[at(ny, nx)],
                     );
-                    max_abs = max_abs.max(c.abs());
+                    max_abs_of[p] = max_abs_of[p].max(c.abs());
                     cos_sum += c;
                     cos_n += 1;
-                    any = true;
+                    any_of[p] = true;
                 }
             }
+        }
+    }
+    // Noise-like patches: unrelated to every neighbour and, with an init scale, neither
+    // moved above it nor off the candidates' common scale.
+    let init = init_std.filter(|s| s.is_finite() && *s > 0.0);
+    let ln_rms: Vec<f64> = norms
+        .iter()
+        .map(|n| (n / (dim.max(1) as f64).sqrt()).ln())
+        .collect();
+    let unrelated: Vec<bool> = (0..h * w)
+        .map(|p| dim >= 16 && any_of[p] && max_abs_of[p] <= noise_bound && norms[p] > 0.0)
+        .collect();
+    let noise: Vec<bool> = match init {
+        None => unrelated.clone(),
+        Some(s) => {
+            let limit = (crate::analyze::untrained::INIT_SCALE_MAX * s).ln();
+            let cand: Vec<usize> = (0..h * w)
+                .filter(|&p| unrelated[p] && ln_rms[p] <= limit)
+                .collect();
+            let tol = crate::analyze::untrained::SCALE_Z / (2.0 * dim as f64).sqrt();
+            let common = crate::analyze::untrained::common_log_scale(
+                &cand.iter().map(|&p| ln_rms[p]).collect::<Vec<_>>(),
+                tol,
+            );
+            let mut m = vec![false; h * w];
+            for p in cand {
+                m[p] = common.is_some_and(|c| (ln_rms[p] - c).abs() <= tol);
+            }
+            m
+        }
+    };
+    for y in 0..h {
+        for x in 0..w {
+            let p = at(y, x);
+            let (max_abs, any) = (max_abs_of[p], any_of[p]);
             let reason = if norms[p] == 0.0 {
                 Some("zero")
-            } else if dim >= 16 && any && max_abs <= noise_bound {
+            } else if noise[p] {
                 Some("noise-like")
             } else if (mad > 0.0 && (norms[p] - median).abs() > 5.0 * mad)
                 || (mad == 0.0 && (norms[p] - median).abs() > 1e-6 * median.max(1e-300))
@@ -521,7 +571,7 @@ pub fn analyze_grid(table: ArrayView2<f64>, layout: &GridLayout) -> GridAnalysis
             };
             if dim >= 16 && any {
                 tested += 1;
-                if max_abs <= noise_bound && norms[p] > 0.0 {
+                if noise[p] {
                     noise_like += 1;
                 }
             }

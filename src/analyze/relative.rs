@@ -61,12 +61,64 @@ pub struct UnreachableRow {
     pub mean: f64,
     /// Median RMS of the reachable rows, for scale.
     pub reachable_rms_median: f64,
-    /// `rms / init_std` when an init scale is known.
+    /// `rms / init_std` when an init scale is known: the row's own shrink factor when it
+    /// is init noise shrunk by weight decay.
     pub rms_over_init_std: Option<f64>,
+    /// `n·mean² / rms²` (n heads): about χ²₁ for zero-mean noise at any scale, up to n
+    /// for a row of equal values.
+    pub mean_statistic: f64,
+    /// z score of this row's factor against the never-trained buckets' common factor
+    /// ([`crate::analyze::decay::disagreement`]); `None` without such buckets.
+    pub factor_z_vs_never_trained: Option<f64>,
     /// Whether the row still looks like its initial noise; `None` without an init scale.
     /// `false` is a finding: the row cannot have been trained, so it was altered or
     /// initialised differently.
     pub looks_like_init: Option<bool>,
+}
+
+/// A run of never-trained buckets and the distances it covers.
+#[derive(Debug, Clone, Serialize)]
+pub struct NeverTrainedRange {
+    /// First bucket.
+    pub start: usize,
+    /// One past the last bucket.
+    pub end: usize,
+    /// Signed distance (key − query) of smallest magnitude that maps into the range.
+    pub nearest_distance: i64,
+    /// Signed distance of largest magnitude, `None` when every farther distance lands
+    /// in the range too (it holds the side's last bucket).
+    pub farthest_distance: Option<i64>,
+}
+
+/// Upper χ²_k quantile at p = 0.001 (z = 3.09), Wilson–Hilferty approximation
+/// (Wilson & Hilferty 1931): `k·(1 − 2/(9k) + z·√(2/(9k)))³`. k = 1 gives 11.1
+/// (exact 10.83), k = 4 gives 18.7 (exact 18.47).
+fn chi2_upper(k: usize) -> f64 {
+    let k = k.max(1) as f64;
+    let c = 2.0 / (9.0 * k);
+    k * (1.0 - c + 3.09 * c.sqrt()).powi(3)
+}
+
+/// Lower χ²_k quantile at p = 0.001, same approximation, floored at 0.
+fn chi2_lower(k: usize) -> f64 {
+    let k = k.max(1) as f64;
+    let c = 2.0 / (9.0 * k);
+    k * (1.0 - c - 3.09 * c.sqrt()).max(0.0).powi(3)
+}
+
+/// Whether `values` look like independent draws of N(0, s²): the mean component
+/// `n·mean²/s²` (χ²₁ under the model) and the total `Σx²/s²` (χ²_n) both stay under
+/// their 0.999 quantiles.
+fn noise_at_scale(values: &[f64], s: f64) -> bool {
+    if values.is_empty() || s.is_nan() || s <= 0.0 {
+        return false;
+    }
+    let n = values.len() as f64;
+    let mean = values.iter().sum::<f64>() / n;
+    let total = values.iter().map(|v| v * v).sum::<f64>() / (s * s);
+    n * mean * mean / (s * s) <= chi2_upper(1)
+        && total <= chi2_upper(values.len())
+        && total >= chi2_lower(values.len())
 }
 
 /// What a relative-position bias table says.
@@ -100,6 +152,20 @@ pub struct RelativeAnalysis {
     pub head_trends: Vec<HeadTrend>,
     /// Heads whose values look like untrained noise.
     pub untrained_heads: Vec<usize>,
+    /// Reachable buckets that look never trained: contiguous runs at the far end of each
+    /// direction whose values are noise of the init's shape at one common scale f·σ
+    /// (sorted). Needs an init scale.
+    pub never_trained: Vec<usize>,
+    /// Half-open bucket ranges of `never_trained`, each with the signed distances
+    /// (key − query) it covers: `(start, end, nearest distance, farthest distance)`;
+    /// the farthest is `None` when the range holds the last bucket of its side (every
+    /// longer distance lands there).
+    pub never_trained_ranges: Vec<NeverTrainedRange>,
+    /// Common factor f of the never-trained buckets against the init scale, with its
+    /// interval (pooled RMS / σ).
+    pub never_trained_factor: Option<crate::analyze::decay::DecayEstimate>,
+    /// Every reachable bucket is never-trained: the table looks like its initialization.
+    pub looks_like_init: bool,
     /// Assumptions made, in plain words.
     pub notes: Vec<String>,
     /// Why no analysis was possible, if so.
@@ -123,6 +189,10 @@ impl RelativeAnalysis {
             offset_maps: Vec::new(),
             head_trends: Vec::new(),
             untrained_heads: Vec::new(),
+            never_trained: Vec::new(),
+            never_trained_ranges: Vec::new(),
+            never_trained_factor: None,
+            looks_like_init: false,
             notes: Vec::new(),
             problem: None,
         }
@@ -367,15 +437,26 @@ fn path_cost(table: &ArrayView2<f64>, path: &[usize]) -> f64 {
 /// correlation of bias with distance on each side (negative = decay), fraction of
 /// decreasing steps, and lag-1 autocorrelation along distance.
 ///
-/// An unreachable row "looks like init" when, with h heads and init std σ,
+/// Never-trained buckets (init scale σ known). Decoupled weight decay (Loshchilov &
+/// Hutter 2019) leaves a bucket that never gets a gradient at `init × f`, one common
+/// f ≤ 1, so a row is never-trained when it is noise of the init's shape at scale f·σ:
 ///
 /// ```text
-/// |mean| ≤ 4σ/√h    and    rms/σ ∈ [1 − 4/√(2h), 1 + 4/√(2h)]
+/// noise(x, s):  n·mean²/s² ≤ χ²₁(0.999)   and   χ²_n(0.001) ≤ Σx²/s² ≤ χ²_n(0.999)
+/// run_side  = longest far-end run of the side's buckets with noise(row, σ)
+/// repeat:   f = pooled rms(runs)/σ; cut each run at its first row failing noise(row, f·σ)
+/// accept when stable and f ≤ exp(3·se(ln f))
 /// ```
 ///
-/// (4 standard errors of a normal sample's mean and standard deviation; common practice).
-/// A head "looks untrained" when |Spearman| < 0.6 on every side, the lag-1
-/// autocorrelation is < 0.5 and, with σ known, its spread is within [0.5, 2]·σ.
+/// An unreachable row "looks like init" (untrained, possibly shrunk) when, with h heads,
+/// it is zero-mean noise at its own scale (`h·mean²/rms² ≤ χ²₁(0.999)`, spread
+/// `Σ(x−mean)²/rms² ≥ χ²_{h−1}(0.001)`), not larger than the init
+/// (`rms/σ ≤ 1 + 4/√(2h)`), and its factor agrees with the never-trained buckets' one
+/// (z ≤ 4, [`crate::analyze::decay::disagreement`]). χ² quantiles: Wilson–Hilferty.
+///
+/// A head "looks untrained" when the whole table looks like its initialization, or when
+/// |Spearman| < 0.6 on every side, the lag-1 autocorrelation is < 0.5, with σ known its
+/// spread is within [0.5, 2]·σ and its values on the trained buckets are noise(·, σ).
 ///
 /// Edge cases: fewer than 2 rows, no heads or non-finite values set `problem`.
 pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnalysis {
@@ -426,19 +507,116 @@ pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnal
     let rms_of = |r: usize| -> f64 {
         (table.row(r).iter().map(|v| v * v).sum::<f64>() / heads as f64).sqrt()
     };
+    let row_vals = |b: usize| -> Vec<f64> { table.row(b).to_vec() };
+    let init = hints.init_std.filter(|s| s.is_finite() && *s > 0.0);
+    let before = side_sequence(-1, bidirectional, nb, md);
+    let after = side_sequence(1, bidirectional, nb, md);
+    let sides: Vec<&Vec<usize>> = if bidirectional {
+        vec![&before, &after]
+    } else {
+        vec![&before]
+    };
+
+    // Never-trained buckets: far-end runs of each side that are noise at the init scale,
+    // then shrunk to rows that are noise at the common scale f·σ of the run.
+    if let Some(sigma) = init {
+        let mut runs: Vec<Vec<usize>> = sides
+            .iter()
+            .map(|seq| {
+                seq.iter()
+                    .rev()
+                    .take_while(|&&b| noise_at_scale(&row_vals(b), sigma))
+                    .copied()
+                    .collect()
+            })
+            .collect();
+        for _ in 0..nb + 1 {
+            let mut cand: Vec<usize> = runs.iter().flatten().copied().collect();
+            cand.sort_unstable();
+            cand.dedup();
+            let rms: Vec<f64> = cand.iter().map(|&b| rms_of(b)).collect();
+            let Some(est) = crate::analyze::decay::estimate(&rms, heads, sigma) else {
+                break;
+            };
+            let s = sigma * est.factor;
+            let shrunk: Vec<Vec<usize>> = runs
+                .iter()
+                .map(|run| {
+                    run.iter()
+                        .take_while(|&&b| noise_at_scale(&row_vals(b), s))
+                        .copied()
+                        .collect()
+                })
+                .collect();
+            if shrunk == runs {
+                // One common factor f ≤ 1 (within 3 standard errors): decay only shrinks.
+                if est.factor <= (3.0 * est.log_standard_error).exp() {
+                    a.never_trained = cand;
+                    a.never_trained_factor = Some(est);
+                }
+                break;
+            }
+            runs = shrunk;
+        }
+    } else {
+        a.notes
+            .push("no init scale known: never-trained buckets are not looked for".into());
+    }
+    a.looks_like_init = !reachable.is_empty() && a.never_trained.len() == reachable.len();
+    let limit = enumeration_limit(nb, md);
+    let mut i = 0;
+    while i < a.never_trained.len() {
+        let mut j = i;
+        while j + 1 < a.never_trained.len() && a.never_trained[j + 1] == a.never_trained[j] + 1 {
+            j += 1;
+        }
+        let (start, end) = (a.never_trained[i], a.never_trained[j] + 1);
+        let dists: Vec<i64> = (-limit..=limit)
+            .filter(|&rp| (start..end).contains(&t5_bucket(rp, bidirectional, nb, md)))
+            .collect();
+        let nearest = dists.iter().copied().min_by_key(|d| d.unsigned_abs());
+        let farthest = dists.iter().copied().max_by_key(|d| d.unsigned_abs());
+        if let (Some(n), Some(f)) = (nearest, farthest) {
+            a.never_trained_ranges.push(NeverTrainedRange {
+                start,
+                end,
+                nearest_distance: n,
+                farthest_distance: (f.abs() < limit).then_some(f),
+            });
+        }
+        i = j + 1;
+    }
+
     let mut reach_rms: Vec<f64> = reachable.iter().map(|&r| rms_of(r)).collect();
     reach_rms.sort_by(|x, y| x.total_cmp(y));
     let reach_median = reach_rms.get(reach_rms.len() / 2).copied().unwrap_or(0.0);
     for &b in &a.unreachable {
         let rms = rms_of(b);
-        let mean = table.row(b).sum() / heads as f64;
+        let vals = row_vals(b);
+        let mean = vals.iter().sum::<f64>() / heads as f64;
         let h = heads as f64;
-        let init = hints.init_std.filter(|s| s.is_finite() && *s > 0.0);
+        let mean_statistic = if rms > 0.0 {
+            h * mean * mean / (rms * rms)
+        } else {
+            h
+        };
+        let deviation = if rms > 0.0 {
+            vals.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (rms * rms)
+        } else {
+            0.0
+        };
+        let own = init.and_then(|s| crate::analyze::decay::estimate(&[rms], heads, s));
+        let z = match (&own, &a.never_trained_factor) {
+            (Some(o), Some(p)) => Some(crate::analyze::decay::disagreement(o, p)),
+            _ => None,
+        };
         let looks = init.map(|s| {
             let spread = 4.0 / (2.0 * h).sqrt();
-            mean.abs() <= 4.0 * s / h.sqrt()
-                && rms / s >= (1.0 - spread).max(0.0)
+            rms > 0.0
+                && mean_statistic <= chi2_upper(1)
+                && (heads < 2 || deviation >= chi2_lower(heads - 1))
                 && rms / s <= 1.0 + spread
+                && z.is_none_or(|z| z <= 4.0)
         });
         a.unreachable_rows.push(UnreachableRow {
             bucket: b,
@@ -446,6 +624,8 @@ pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnal
             mean,
             reachable_rms_median: reach_median,
             rms_over_init_std: init.map(|s| rms / s),
+            mean_statistic,
+            factor_z_vs_never_trained: z,
             looks_like_init: looks,
         });
     }
@@ -461,8 +641,11 @@ pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnal
         })
         .collect();
 
-    let before = side_sequence(-1, bidirectional, nb, md);
-    let after = side_sequence(1, bidirectional, nb, md);
+    let trained: Vec<usize> = reachable
+        .iter()
+        .copied()
+        .filter(|b| !a.never_trained.contains(b))
+        .collect();
     for h in 0..heads {
         let vals = |seq: &[usize]| -> Vec<f64> { seq.iter().map(|&b| table[[b, h]]).collect() };
         let side_corr = |seq: &[usize]| -> Option<f64> {
@@ -490,7 +673,13 @@ pub fn analyze_t5(table: ArrayView2<f64>, hints: &RelativeHints) -> RelativeAnal
         let reach_vals: Vec<f64> = reachable.iter().map(|&b| table[[b, h]]).collect();
         let std = std_of(&reach_vals);
         let corrs = [sb, sa];
-        let untrained = untrained_verdict(&corrs, ac, std, hints.init_std);
+        // A head is init noise only if its trained buckets are noise at the init scale
+        // (zero mean, χ² spread); trained heads of a briefly trained table can be rough.
+        let noise_ok = init.is_none_or(|s| {
+            let v: Vec<f64> = trained.iter().map(|&b| table[[b, h]]).collect();
+            v.is_empty() || noise_at_scale(&v, s)
+        });
+        let untrained = a.looks_like_init || (untrained_verdict(&corrs, ac, std, init) && noise_ok);
         if untrained {
             a.untrained_heads.push(h);
         }

@@ -42,7 +42,8 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
         );
         return;
     };
-    let a = grid::analyze_grid(table.view(), &layout);
+    let init_std = config.and_then(|c| c.initializer_range.as_ref().map(|h| h.value));
+    let a = grid::analyze_grid_init(table.view(), &layout, init_std);
     let extra = layout.extra_rows;
     let mut verdict = format!(
         "{}x{} grid + {} extra row(s)",
@@ -74,18 +75,47 @@ pub fn grid(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&ConfigH
             100.0 * s.additive
         );
     }
-    if a.odd_patch_count > 0 {
-        let rows: Vec<usize> = a.odd_patches.iter().map(|p| p.table_row).collect();
+    let outliers: Vec<usize> = a
+        .odd_patches
+        .iter()
+        .filter(|p| p.reason == "norm-outlier")
+        .map(|p| p.table_row)
+        .collect();
+    if !outliers.is_empty() {
+        audit.findings.push(
+            Finding::info(
+                FindingCode::NormOutlier,
+                format!(
+                    "{} patch(es) have a norm far from the others (table rows {:?}).",
+                    outliers.len(),
+                    outliers
+                ),
+            )
+            .ranges(outliers.iter().map(|&r| [r, r + 1]))
+            .evidence(format!(
+                "median patch norm {:.4}; more than 5 robust standard deviations away",
+                a.norm_median.unwrap_or(f64::NAN)
+            ))
+            .limits("A norm outlier moved far from the init: it was trained, not left untrained."),
+        );
+    }
+    let untrained_patches: Vec<&grid::OddPatch> = a
+        .odd_patches
+        .iter()
+        .filter(|p| p.reason != "norm-outlier")
+        .collect();
+    if !untrained_patches.is_empty() {
+        let rows: Vec<usize> = untrained_patches.iter().map(|p| p.table_row).collect();
         let first = rows.iter().min().copied().unwrap_or(extra);
         let last = rows.iter().max().copied().unwrap_or(extra) + 1;
         let noise_like = a.noise_like_fraction.unwrap_or(0.0);
         audit.findings.push(Finding::warning(FindingCode::UntrainedRows, format!(
                 "{} of {} patches look unlike their grid neighbours (e.g. patch ({}, {}): {}).",
-                a.odd_patch_count,
+                untrained_patches.len(),
                 layout.height * layout.width,
-                a.odd_patches.first().map(|p| p.row).unwrap_or(0),
-                a.odd_patches.first().map(|p| p.col).unwrap_or(0),
-                a.odd_patches.first().map(|p| p.reason.as_str()).unwrap_or("")
+                untrained_patches.first().map(|p| p.row).unwrap_or(0),
+                untrained_patches.first().map(|p| p.col).unwrap_or(0),
+                untrained_patches.first().map(|p| p.reason.as_str()).unwrap_or("")
             ))
 .rows([first, last])
 .evidence(format!("noise-like share of patches {:.2}; median patch norm {:.4}", noise_like, a.norm_median.unwrap_or(f64::NAN)))
@@ -116,11 +146,30 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
         } else {
             None
         };
-        // T5 initialises the bias with normal(0, factor·d_model^-0.5), factor 1.0
-        // (check-values §5.1).
-        let init_std = config
-            .and_then(|c| c.hidden_size.as_ref())
-            .map(|h| (h.value as f64).powf(-0.5));
+        // HF T5's own module (`…SelfAttention.relative_attention_bias`, a t5 model type
+        // or an initializer_factor) initialises the bias with
+        // normal(0, initializer_factor·d_model^-0.5), factor 1.0 by default
+        // (check-values §5.1); other families (MPNet: `encoder.relative_attention_bias`)
+        // use the config's initializer_range.
+        let t5_rule = audit.name.contains("SelfAttention.relative_attention_bias")
+            || config.is_some_and(|c| {
+                c.initializer_factor.is_some()
+                    || c.model_type
+                        .as_ref()
+                        .is_some_and(|m| m.to_ascii_lowercase().contains("t5"))
+            });
+        let t5_std = config.and_then(|c| {
+            let factor = c.initializer_factor.as_ref().map_or(1.0, |f| f.value);
+            c.hidden_size
+                .as_ref()
+                .map(|h| factor * (h.value as f64).powf(-0.5))
+        });
+        let range = config.and_then(|c| c.initializer_range.as_ref().map(|h| h.value));
+        let init_std = if t5_rule {
+            t5_std.or(range)
+        } else {
+            range.or(t5_std)
+        };
         relative::analyze_t5(
             table.view(),
             &RelativeHints {
@@ -138,30 +187,106 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
             format!("The relative-bias analysis could not run fully: {p}."),
         ));
     }
+    let factor_text = |e: &crate::analyze::decay::DecayEstimate| {
+        format!(
+            "common factor f = {:.3} (95% interval {:.3}..{:.3}) of the init std {:.4}",
+            e.factor, e.interval[0], e.interval[1], e.init_std
+        )
+    };
+    if !a.looks_like_init && !a.never_trained_ranges.is_empty() {
+        let describe = |r: &relative::NeverTrainedRange| {
+            let d = |x: i64| format!("{x}");
+            let span = match r.farthest_distance {
+                Some(f) if r.nearest_distance < 0 => {
+                    format!("distances {}..={}", d(f), d(r.nearest_distance))
+                }
+                Some(f) => format!("distances {}..={}", d(r.nearest_distance), d(f)),
+                None if r.nearest_distance < 0 => format!("distances ≤ {}", r.nearest_distance),
+                None => format!("distances ≥ {}", r.nearest_distance),
+            };
+            format!("buckets {}..{} ({span})", r.start, r.end)
+        };
+        let parts: Vec<String> = a.never_trained_ranges.iter().map(describe).collect();
+        let shortest = a
+            .never_trained_ranges
+            .iter()
+            .map(|r| r.nearest_distance.unsigned_abs())
+            .min()
+            .unwrap_or(0);
+        let est = a.never_trained_factor.as_ref();
+        audit.findings.push(
+            Finding::warning(
+                FindingCode::UntrainedRows,
+                format!(
+                    "Relative-bias {} never trained: training probably never used sequences longer than {} tokens (no distance of {} or more).",
+                    parts.join(" and "),
+                    shortest,
+                    shortest
+                ),
+            )
+            .ranges(a.never_trained_ranges.iter().map(|r| [r.start, r.end]))
+            .evidence(format!(
+                "{} buckets at the far end of their direction hold zero-mean noise of one common scale, {}; the nearer buckets are far from it (mean or spread beyond the 0.999 quantile of that noise)",
+                a.never_trained.len(),
+                est.map(factor_text).unwrap_or_default()
+            ))
+            .limits("Decided from the values alone: a bucket trained for very few steps can still look like its init. f < 1 is expected from weight decay; f is estimated from a few values per bucket."),
+        );
+    }
     for row in &a.unreachable_rows {
+        let shrink = row
+            .rms_over_init_std
+            .map(|f| format!("{f:.3}"))
+            .unwrap_or_else(|| "unknown".into());
+        let agree = match (row.factor_z_vs_never_trained, &a.never_trained_factor) {
+            (Some(z), Some(e)) => format!(
+                "; never-trained buckets' factor {:.3}, disagreement z {z:.2}",
+                e.factor
+            ),
+            _ => String::new(),
+        };
         match row.looks_like_init {
             Some(false) => audit.findings.push(Finding::warning(FindingCode::UnreachableBucketAltered, format!(
-                    "Bucket {} is never produced by the bucket function, so it cannot have been trained, yet it does not look like its initial values.",
+                    "Bucket {} is never produced by the bucket function, so it cannot have been trained, yet it is not noise of the init's shape at any scale.",
                     row.bucket
                 ))
 .rows([row.bucket, row.bucket + 1])
 .evidence(format!(
-                    "rms {:.4}, mean {:.4}; reachable rows' median rms {:.4}; rms / init std {}",
+                    "rms {:.4}, mean {:.4} (mean statistic h·mean²/rms² {:.2}, noise: below 10.8); reachable rows' median rms {:.4}; rms / init std {shrink}{agree}",
                     row.rms,
                     row.mean,
+                    row.mean_statistic,
                     row.reachable_rms_median,
-                    row.rms_over_init_std.map(|v| format!("{v:.2}")).unwrap_or_else(|| "unknown".into())
                 ))
 .limits("The row was written by something other than training (a conversion, a different init, or an edit); it has no effect on attention.")),
-            Some(true) => audit.findings.push(Finding::info(FindingCode::UnreachableBucket, format!("Bucket {} is never produced by the bucket function and still holds its initial values, as expected.", row.bucket))
+            Some(true) => audit.findings.push(Finding::info(FindingCode::UnreachableBucket, format!("Bucket {} is never produced by the bucket function and still holds its initial values (init noise times a factor {shrink}; weight decay shrinks untrained values), as expected.", row.bucket))
 .rows([row.bucket, row.bucket + 1])
-.evidence(format!("rms {:.4}, mean {:.4}", row.rms, row.mean))
+.evidence(format!("rms {:.4}, mean {:.4}, rms / init std {shrink}{agree}", row.rms, row.mean))
 .limits("Expected for this bucket layout; nothing to do.")),
             None => {}
         }
     }
     if !a.untrained_heads.is_empty() {
-        audit.findings.push(Finding::warning(FindingCode::UntrainedHeads, format!("Head(s) {:?} show no trend with distance and look like initial noise.", a.untrained_heads))
+        let message = if a.looks_like_init {
+            format!(
+                "The whole table looks like its initialization: every reachable bucket is zero-mean noise of one scale ({}); heads {:?} are untrained.",
+                a.never_trained_factor
+                    .as_ref()
+                    .map(factor_text)
+                    .unwrap_or_default(),
+                a.untrained_heads
+            )
+        } else {
+            format!(
+                "Head(s) {:?} show no trend with distance and look like initial noise.",
+                a.untrained_heads
+            )
+        };
+        let mut f = Finding::warning(FindingCode::UntrainedHeads, message);
+        if a.looks_like_init {
+            f = f.ranges(a.never_trained_ranges.iter().map(|r| [r.start, r.end]));
+        }
+        audit.findings.push(f
 .evidence(a
                 .head_trends
                 .iter()

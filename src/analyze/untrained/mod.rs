@@ -634,7 +634,7 @@ fn subspace(
 /// `tolerance` holding the most values (a mode, so trained rows that happen to look
 /// noise-like at another scale do not move it), refined to the median of the values
 /// within `tolerance` of it. None without values.
-fn common_log_scale(ln_rms: &[f64], tolerance: f64) -> Option<f64> {
+pub(crate) fn common_log_scale(ln_rms: &[f64], tolerance: f64) -> Option<f64> {
     let mut v: Vec<f64> = ln_rms.iter().copied().filter(|x| x.is_finite()).collect();
     if v.is_empty() {
         return None;
