@@ -259,7 +259,7 @@ pub fn relative(audit: &mut TableAudit, table: &Array2<f64>, config: Option<&Con
                     row.reachable_rms_median,
                 ))
 .limits("The row was written by something other than training (a conversion, a different init, or an edit); it has no effect on attention.")),
-            Some(true) => audit.findings.push(Finding::info(FindingCode::UnreachableBucket, format!("Bucket {} is never produced by the bucket function and still holds its initial values (init noise times a factor {shrink}; weight decay shrinks untrained values), as expected.", row.bucket))
+            Some(true) => audit.findings.push(Finding::info(FindingCode::UnreachableBucket, format!("Bucket {} is never produced by the bucket function and still holds its initial values (init noise times a factor {shrink}{}), as expected.", row.bucket, if row.rms_over_init_std.is_some_and(|f| f < 1.0) { "; weight decay shrinks values that never get a gradient" } else { "" }))
 .rows([row.bucket, row.bucket + 1])
 .evidence(format!("rms {:.4}, mean {:.4}, rms / init std {shrink}{agree}", row.rms, row.mean))
 .limits("Expected for this bucket layout; nothing to do.")),
