@@ -424,10 +424,24 @@ fn learned(
             }
             text
         }
-        None if report.count > 0 => format!(
-            "{} untrained row(s) outside a tail; the rest trained",
-            report.count
-        ),
+        None if report.count > 0 => {
+            let reserved_untrained: usize = report
+                .ranges
+                .iter()
+                .map(|r| to_table(*r))
+                .filter(|r| r[1] <= reserved)
+                .map(|r| r[1] - r[0])
+                .sum();
+            let others = report.count.saturating_sub(reserved_untrained);
+            if others == 0 {
+                format!(
+                    "rows {reserved}..{n_all} trained ({} token positions); {reserved_untrained} row(s) before row {reserved} never indexed, as expected",
+                    n_all - reserved
+                )
+            } else {
+                format!("{others} untrained row(s) outside a tail; the rest trained")
+            }
+        }
         None => format!(
             "all {n_all} rows look trained (median neighbour cosine {})",
             fmt_opt(median_cos)

@@ -97,10 +97,22 @@ fn one_d(t: &TableAudit, prefix: &str, out: &mut Vec<Figure>) {
                 format!("init noise σ√d = {:.3}", std * (d as f64).sqrt()),
             ));
         }
+        // The phase boundary, as the verdicts placed it (a table row).
+        if let Some(f) = t
+            .findings
+            .iter()
+            .find(|f| f.code == FindingCode::PhaseBoundary)
+            .and_then(|f| f.ranges.first())
+        {
+            c.v_lines.push(RefLine::new(
+                f[0] as f64,
+                format!("phase boundary {}", f[0]),
+            ));
+        }
         out.push(fig(
             prefix,
             "norms",
-            "Row norms against position, untrained ranges shaded",
+            "Row norms against position, untrained ranges shaded, a phase boundary marked",
             plots::line_chart(&c),
         ));
 
