@@ -385,19 +385,19 @@ fn learned(
         .copied()
         .collect::<Vec<f64>>();
     let median_cos = median(&smooth);
+    // Never-indexed rows before the first position are told apart, not counted.
+    let in_reserved: usize = report
+        .ranges
+        .iter()
+        .map(|r| to_table(*r))
+        .filter(|r| r[1] <= reserved)
+        .map(|r| r[1] - r[0])
+        .sum();
     audit.verdict = match report.first {
         Some(f) => {
             let start = to_table([f, f + 1])[0];
             let tail = n_all - start;
             let in_fade: usize = within_fade.iter().map(|x| x[1] - x[0]).sum();
-            // Never-indexed rows before the first position are told apart, not counted.
-            let in_reserved: usize = report
-                .ranges
-                .iter()
-                .map(|r| to_table(*r))
-                .filter(|r| r[1] <= reserved)
-                .map(|r| r[1] - r[0])
-                .sum();
             let others = report
                 .count
                 .saturating_sub(report.ranges.last().map_or(0, |r| r[1] - r[0]))
@@ -425,17 +425,10 @@ fn learned(
             text
         }
         None if report.count > 0 => {
-            let reserved_untrained: usize = report
-                .ranges
-                .iter()
-                .map(|r| to_table(*r))
-                .filter(|r| r[1] <= reserved)
-                .map(|r| r[1] - r[0])
-                .sum();
-            let others = report.count.saturating_sub(reserved_untrained);
+            let others = report.count.saturating_sub(in_reserved);
             if others == 0 {
                 format!(
-                    "rows {reserved}..{n_all} trained ({} token positions); {reserved_untrained} row(s) before row {reserved} never indexed, as expected",
+                    "rows {reserved}..{n_all} trained ({} token positions); {in_reserved} row(s) before row {reserved} never indexed, as expected",
                     n_all - reserved
                 )
             } else {

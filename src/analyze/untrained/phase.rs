@@ -3,7 +3,7 @@
 
 use ndarray::ArrayView2;
 
-use super::PhaseBoundary;
+use super::{PhaseBoundary, median};
 
 /// Rows on each side of a split for the linear fits of ln ‖x_r‖.
 const WINDOW: usize = 32;
@@ -269,20 +269,6 @@ fn solve(a: &[[f64; 3]; 3], b: &[f64; 3], k: usize) -> Option<[f64; 3]> {
         out[i] = m[i][3] / m[i][i];
     }
     Some(out)
-}
-
-fn median(mut v: Vec<f64>) -> Option<f64> {
-    v.retain(|x| x.is_finite());
-    if v.is_empty() {
-        return None;
-    }
-    v.sort_by(f64::total_cmp);
-    let m = v.len() / 2;
-    Some(if v.len() % 2 == 1 {
-        v[m]
-    } else {
-        0.5 * (v[m - 1] + v[m])
-    })
 }
 
 fn mean_var(x: &[f64]) -> (f64, f64) {
