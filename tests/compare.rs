@@ -9,7 +9,7 @@ mod common;
 
 use std::path::{Path, PathBuf};
 
-use common::{fixture, posaudit};
+use common::{fixture, posaudit, table};
 use serde_json::Value;
 
 /// Seeded generator (SplitMix64) with Box-Muller normals: invented data.
@@ -127,15 +127,6 @@ fn compare_json(paths: &[PathBuf], extra: &[&str]) -> Value {
     let run = posaudit(&argv);
     assert_eq!(run.code, 0, "stderr: {}", run.stderr);
     serde_json::from_str(&run.stdout).expect("stdout is one JSON document")
-}
-
-fn table<'a>(doc: &'a Value, name: &str) -> &'a Value {
-    doc["tables"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|t| t["name"] == name)
-        .unwrap_or_else(|| panic!("no table {name} in {doc}"))
 }
 
 fn ranges(v: &Value) -> Vec<[u64; 2]> {

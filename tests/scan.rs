@@ -5,7 +5,7 @@ mod common;
 
 use std::fs;
 
-use common::{assert_input_error, fixture, posaudit};
+use common::{assert_input_error, fixture, posaudit, table};
 use serde_json::Value;
 
 fn scan_json(path: &str) -> Value {
@@ -510,15 +510,6 @@ fn mutated_files_give_a_result_or_an_input_error_never_a_panic() {
 
 // ---- detection that generalises (fixtures/scan/names, written by fixtures/generate.py's
 // name_fixtures with the gguf, numpy and safetensors writers; invented data) ----------
-
-fn table<'a>(doc: &'a Value, name: &str) -> &'a Value {
-    doc["tables"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|t| t["name"] == name)
-        .unwrap_or_else(|| panic!("{name} not listed: {}", doc["tables"]))
-}
 
 #[test]
 fn gguf_canonical_position_table_name_is_recognised() {

@@ -7,13 +7,8 @@
 
 mod common;
 
-use common::{fixture, posaudit};
+use common::{fixture, pairs, posaudit, table, training_truth};
 use serde_json::Value;
-
-fn truth() -> Value {
-    let text = std::fs::read_to_string(fixture("training/truth.json")).expect("truth.json");
-    serde_json::from_str(&text).expect("truth.json is JSON")
-}
 
 fn audit_path(path: &str) -> Value {
     let run = posaudit(&["audit", "--json", path]);
@@ -23,28 +18,6 @@ fn audit_path(path: &str) -> Value {
 
 fn audit(save: &str) -> Value {
     audit_path(&fixture(&format!("training/{save}")).display().to_string())
-}
-
-fn table<'a>(doc: &'a Value, name: &str) -> &'a Value {
-    doc["tables"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|t| t["name"] == name)
-        .unwrap_or_else(|| panic!("no table {name}"))
-}
-
-fn pairs(v: &Value) -> Vec<[usize; 2]> {
-    v.as_array()
-        .unwrap()
-        .iter()
-        .map(|r| {
-            [
-                r[0].as_u64().unwrap() as usize,
-                r[1].as_u64().unwrap() as usize,
-            ]
-        })
-        .collect()
 }
 
 /// Rows named by the untrained findings (untrained-tail, untrained-rows) of a table.
@@ -66,7 +39,7 @@ fn overlaps(a: [usize; 2], b: [usize; 2]) -> bool {
 fn decoder_tail_starts_where_training_stopped_indexing_at_every_save() {
     // Truth: saves.*.never_trained_rows (phase 1 indexes rows 0..128 every step, phase 2
     // rows 0..256; the batches are full length).
-    let truth = truth();
+    let truth = training_truth();
     let model = &truth["models"]["decoder"];
     let name = model["table"].as_str().unwrap();
     for save in [
@@ -132,7 +105,7 @@ fn decoder_phase_boundary_of_the_short_then_long_schedule() {
     // 0.053..0.064 against 0.040..0.044 from row 132), so the weights themselves place
     // the step 4 rows late; the clean steps (the real BERT table, the demo) are within
     // 1 row (tests below and demo_reports).
-    let truth = truth();
+    let truth = training_truth();
     let model = &truth["models"]["decoder"];
     let want = model["phase_boundary_row"].as_u64().unwrap() as usize;
     let doc = audit("decoder/step-0800");
@@ -160,7 +133,7 @@ fn decoder_phase_boundary_of_the_short_then_long_schedule() {
 #[test]
 fn an_initialisation_checkpoint_is_untrained_everywhere_and_says_so() {
     // Truth: saves["decoder/step-0000"].never_trained_rows = [[0, 512]].
-    let truth = truth();
+    let truth = training_truth();
     let model = &truth["models"]["decoder"];
     let doc = audit("decoder/step-0000");
     let t = table(&doc, model["table"].as_str().unwrap());
@@ -177,7 +150,7 @@ fn an_initialisation_checkpoint_is_untrained_everywhere_and_says_so() {
 fn encoder_offset_rows_are_classified_and_messages_count_tokens() {
     // Truth: positions start at padding_idx + 1 = 2; row 0 never indexed, row 1 the
     // zero padding row, rows [2, 66) trained (64 tokens), [66, 130) never indexed.
-    let truth = truth();
+    let truth = training_truth();
     let model = &truth["models"]["encoder"];
     let doc = audit("encoder/final");
     let t = table(&doc, model["table"].as_str().unwrap());
@@ -281,7 +254,7 @@ fn optimizer_second_moment_is_direct_evidence_and_agrees_with_the_statistics() {
     // position table is parameter `position_table_optimizer_index` (1); rows 256..512
     // never got a gradient (saves["decoder/step-0800"].never_trained_rows), so their
     // exp_avg_sq is exactly zero (torch.optim.AdamW starts it at 0).
-    let truth = truth();
+    let truth = training_truth();
     let model = &truth["models"]["decoder"];
     let index = model["training_checkpoint"]["position_table_optimizer_index"]
         .as_u64()

@@ -10,13 +10,8 @@
 
 mod common;
 
-use common::{fixture, posaudit};
+use common::{fixture, pairs, posaudit, table, training_truth};
 use serde_json::Value;
-
-fn truth() -> Value {
-    let text = std::fs::read_to_string(fixture("training/truth.json")).expect("truth.json");
-    serde_json::from_str(&text).expect("truth.json is JSON")
-}
 
 fn compare(saves: &[&str]) -> Value {
     let paths: Vec<String> = saves
@@ -28,28 +23,6 @@ fn compare(saves: &[&str]) -> Value {
     let run = posaudit(&args);
     assert_eq!(run.code, 0, "stderr: {}", run.stderr);
     serde_json::from_str(&run.stdout).expect("compare --json prints JSON")
-}
-
-fn table<'a>(doc: &'a Value, name: &str) -> &'a Value {
-    doc["tables"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|t| t["name"] == name)
-        .unwrap_or_else(|| panic!("no table {name} in {doc}"))
-}
-
-fn pairs(v: &Value) -> Vec<[usize; 2]> {
-    v.as_array()
-        .unwrap()
-        .iter()
-        .map(|r| {
-            [
-                r[0].as_u64().unwrap() as usize,
-                r[1].as_u64().unwrap() as usize,
-            ]
-        })
-        .collect()
 }
 
 /// Half-open ranges of the rows where `flag` holds.
@@ -145,7 +118,7 @@ fn decoder_trained_between(dec: &Value, from: u64, to: u64) -> Vec<bool> {
 
 #[test]
 fn decoder_unchanged_rows_are_exactly_the_rows_without_gradient_with_the_decay_factor() {
-    let truth = truth();
+    let truth = training_truth();
     let dec = &truth["models"]["decoder"];
     let saves = [
         "decoder/step-0000",
@@ -182,7 +155,7 @@ fn decoder_unchanged_rows_are_exactly_the_rows_without_gradient_with_the_decay_f
 
 #[test]
 fn decoder_timeline_never_calls_rows_without_gradient_converged_or_trained() {
-    let truth = truth();
+    let truth = training_truth();
     let dec = &truth["models"]["decoder"];
     let saves = [
         "decoder/step-0000",
@@ -251,7 +224,7 @@ fn decoder_timeline_never_calls_rows_without_gradient_converged_or_trained() {
 
 #[test]
 fn encoder_unchanged_rows_are_the_never_indexed_and_padding_rows() {
-    let truth = truth();
+    let truth = training_truth();
     let enc = &truth["models"]["encoder"];
     let doc = compare(&["encoder/init", "encoder/final"]);
     let t = table(&doc, enc["table"].as_str().unwrap());
@@ -289,7 +262,7 @@ fn bucket_ranges(buckets: &Value, n: usize) -> Vec<[usize; 2]> {
 
 #[test]
 fn t5_unreached_buckets_are_unchanged_decayed_or_bit_identical() {
-    let truth = truth();
+    let truth = training_truth();
     let t5 = &truth["models"]["t5"];
     let n = t5["num_buckets"].as_u64().unwrap() as usize;
     let expected = bucket_ranges(&t5["buckets_unreached_at_training_length"], n);
@@ -305,7 +278,7 @@ fn t5_unreached_buckets_are_unchanged_decayed_or_bit_identical() {
 
 #[test]
 fn vit_rows_all_trained_none_unchanged() {
-    let truth = truth();
+    let truth = training_truth();
     let vit = &truth["models"]["vit"];
     assert_eq!(pairs(&vit["trained_rows"]), vec![[0, 17]]);
     let doc = compare(&["vit/init", "vit/final"]);

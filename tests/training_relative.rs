@@ -5,27 +5,13 @@
 
 mod common;
 
-use common::{fixture, posaudit};
+use common::{fixture, posaudit, table, training_truth};
 use serde_json::Value;
-
-fn truth() -> Value {
-    let path = fixture("training/truth.json");
-    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
-}
 
 fn audit(path: &str) -> Value {
     let run = posaudit(&["audit", path, "--json"]);
     assert!(run.code == 0 || run.code == 1, "{path}: {}", run.stderr);
     serde_json::from_str(&run.stdout).unwrap()
-}
-
-fn table<'a>(doc: &'a Value, name: &str) -> &'a Value {
-    doc["tables"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|t| t["name"] == name)
-        .unwrap_or_else(|| panic!("table {name} audited: {doc}"))
 }
 
 fn findings<'a>(t: &'a Value, code: &str) -> Vec<&'a Value> {
@@ -69,7 +55,7 @@ const UNREACHABLE: usize = 16;
 
 #[test]
 fn t5_never_reached_buckets_are_reported_with_their_distances_and_factor() {
-    let truth = truth();
+    let truth = training_truth();
     let t5 = &truth["models"]["t5"];
     let name = t5["table"].as_str().unwrap();
     let init_std = t5["init_std"].as_f64().unwrap();
@@ -133,7 +119,7 @@ fn t5_never_reached_buckets_are_reported_with_their_distances_and_factor() {
 
 #[test]
 fn t5_init_is_called_its_initialization_in_every_head() {
-    let truth = truth();
+    let truth = training_truth();
     let t5 = &truth["models"]["t5"];
     let doc = audit(fixture("training/t5/init").to_str().unwrap());
     let t = table(&doc, t5["table"].as_str().unwrap());
@@ -182,7 +168,7 @@ fn mpnet_unreachable_bucket_is_decayed_init_not_altered() {
 fn vit_trained_grid_gets_no_untrained_finding_and_its_init_does() {
     // truth.json: every row of vit/final trained (600 AdamW steps); vit/init is the
     // initialisation (trunc_normal std 0.02, initializer_range 0.02 in config.json).
-    let truth = truth();
+    let truth = training_truth();
     let vit = &truth["models"]["vit"];
     let name = vit["table"].as_str().unwrap();
     let cells = vit["grid"][0].as_u64().unwrap() * vit["grid"][1].as_u64().unwrap();

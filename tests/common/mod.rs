@@ -58,3 +58,33 @@ pub fn assert_input_error(run: &Run, file: &str, problem: &str) {
         run.stdout
     );
 }
+
+/// The table entry named `name` in a scan, audit or compare JSON document.
+pub fn table<'a>(doc: &'a serde_json::Value, name: &str) -> &'a serde_json::Value {
+    doc["tables"]
+        .as_array()
+        .expect("the document lists tables")
+        .iter()
+        .find(|t| t["name"] == name)
+        .unwrap_or_else(|| panic!("no table {name} in {}", doc["tables"]))
+}
+
+/// A JSON array of `[start, end]` pairs as half-open row ranges.
+pub fn pairs(v: &serde_json::Value) -> Vec<[usize; 2]> {
+    v.as_array()
+        .unwrap_or_else(|| panic!("not an array of ranges: {v}"))
+        .iter()
+        .map(|r| {
+            [
+                r[0].as_u64().unwrap() as usize,
+                r[1].as_u64().unwrap() as usize,
+            ]
+        })
+        .collect()
+}
+
+/// `fixtures/training/truth.json`, the truth the training generator wrote from its setup.
+pub fn training_truth() -> serde_json::Value {
+    let text = std::fs::read_to_string(fixture("training/truth.json")).expect("truth.json");
+    serde_json::from_str(&text).expect("truth.json is JSON")
+}
