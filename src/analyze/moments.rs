@@ -55,9 +55,7 @@ pub fn zero_rows(second_moment: ArrayView2<f64>) -> Vec<[usize; 2]> {
         .into_iter()
         .map(|r| r.iter().all(|&v| v == 0.0))
         .collect();
-    crate::analyze::ranges::ranges_from_rows(
-        zero.iter().enumerate().filter(|(_, z)| **z).map(|(i, _)| i),
-    )
+    crate::analyze::ranges::ranges_from_mask(&zero)
 }
 
 /// The second-moment tensor of a parameter among the optimizer-state tensor names:

@@ -25,6 +25,7 @@ use ndarray::ArrayView2;
 use serde::Serialize;
 
 use crate::analyze::decay::{self, DecayEstimate};
+use crate::analyze::ranges::ranges_from_mask;
 use crate::linalg;
 
 mod phase;
@@ -278,8 +279,8 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
         .map(|&x| x.is_finite() && x <= 1e-12 * max_norm.max(f64::MIN_POSITIVE))
         .collect();
     let valid: Vec<bool> = (0..n).map(|r| !non_finite[r] && !zero[r]).collect();
-    report.evidence.zero_rows = ranges_of(&zero);
-    report.evidence.non_finite_rows = ranges_of(&non_finite);
+    report.evidence.zero_rows = ranges_from_mask(&zero);
+    report.evidence.non_finite_rows = ranges_from_mask(&non_finite);
 
     // (a) neighbour cosine.
     let t_cos = 4.5 / sqrt_d;
@@ -349,12 +350,12 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
                 && common.is_some_and(|c| (rms[r].ln() - c).abs() > scale_tolerance)
         })
         .collect();
-    report.evidence.above_init_scale_rows = ranges_of(
+    report.evidence.above_init_scale_rows = ranges_from_mask(
         &(0..n)
             .map(|r| above_init[r] && noise_like(r))
             .collect::<Vec<_>>(),
     );
-    report.evidence.off_common_scale_rows = ranges_of(
+    report.evidence.off_common_scale_rows = ranges_from_mask(
         &(0..n)
             .map(|r| off_scale[r] && !above_init[r] && noise_like(r))
             .collect::<Vec<_>>(),
@@ -408,7 +409,7 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
         }
     }
     report.first = first;
-    report.ranges = ranges_of(&in_range);
+    report.ranges = ranges_from_mask(&in_range);
     report.count = report.ranges.iter().map(|r| r[1] - r[0]).sum();
     if let (Some(b), Some(p)) = (first, hints.declared_positions) {
         report.evidence.tail_matches_declared = Some(b == hints.reserved_rows + p);
@@ -482,7 +483,7 @@ pub fn detect_untrained(table: ArrayView2<f64>, hints: &UntrainedHints) -> Untra
     let second_half = start + (trained_end - start) / 2;
     let runs = |below: f64| {
         let weak: Vec<bool> = smoothed.iter().map(|&m| m < below).collect();
-        ranges_of(&weak)
+        ranges_from_mask(&weak)
             .into_iter()
             .filter(|r| r[1] - r[0] >= 3 && r[0] >= second_half)
             .collect::<Vec<_>>()
@@ -670,23 +671,6 @@ fn median(mut v: Vec<f64>) -> Option<f64> {
     } else {
         0.5 * (v[m - 1] + v[m])
     })
-}
-
-fn ranges_of(mask: &[bool]) -> Vec<[usize; 2]> {
-    let mut out = Vec::new();
-    let mut r = 0;
-    while r < mask.len() {
-        if mask[r] {
-            let s = r;
-            while r < mask.len() && mask[r] {
-                r += 1;
-            }
-            out.push([s, r]);
-        } else {
-            r += 1;
-        }
-    }
-    out
 }
 
 #[cfg(test)]

@@ -136,7 +136,8 @@ pub(super) fn phase_boundary(
             .map(|c| c.0)
             .collect();
         let m = tied.get(tied.len() / 2).copied().unwrap_or(m);
-        let (before, after) = fitted_ends(&log_norm, m, w).unwrap_or((f64::NAN, f64::NAN));
+        let (before, after) =
+            fit_at(&log_norm, m, w, 1).map_or((f64::NAN, f64::NAN), |f| (f.2, f.3));
         best = Some(PhaseBoundary {
             row: rows[m],
             statistic: "log_norm".into(),
@@ -179,8 +180,9 @@ pub(super) fn phase_boundary(
 }
 
 /// Fits a polynomial of `degree` (1 or 2) to the `w` values before and after split `m`
-/// (leaving out GAP values on each side) and returns (step, effect) at the split.
-fn step_at(y: &[f64], m: usize, w: usize, degree: usize) -> Option<(f64, f64)> {
+/// (leaving out GAP values on each side) and returns (step, effect) at the split and
+/// the two fits' values there (before, after).
+fn fit_at(y: &[f64], m: usize, w: usize, degree: usize) -> Option<(f64, f64, f64, f64)> {
     if w < 8 || m < w + GAP || m + GAP + w > y.len() {
         return None;
     }
@@ -201,20 +203,12 @@ fn step_at(y: &[f64], m: usize, w: usize, degree: usize) -> Option<(f64, f64)> {
     let var_factor = if degree == 1 { 8.0 } else { 18.0 };
     let se = s * (var_factor / w as f64).sqrt();
     let step = ia - ib;
-    Some((step, step.abs() / se.max(1e-12)))
+    Some((step, step.abs() / se.max(1e-12), ib, ia))
 }
 
-/// The two linear fits' values at split `m`.
-fn fitted_ends(y: &[f64], m: usize, w: usize) -> Option<(f64, f64)> {
-    let xb: Vec<f64> = (0..w)
-        .map(|i| (i + m - GAP - w) as f64 - (m as f64 - 0.5))
-        .collect();
-    let xa: Vec<f64> = (0..w)
-        .map(|i| (i + m + GAP) as f64 - (m as f64 - 0.5))
-        .collect();
-    let (cb, _) = polyfit(&xb, &y[m - GAP - w..m - GAP], 1)?;
-    let (ca, _) = polyfit(&xa, &y[m + GAP..m + GAP + w], 1)?;
-    Some((cb[0], ca[0]))
+/// [`fit_at`]'s step and effect.
+fn step_at(y: &[f64], m: usize, w: usize, degree: usize) -> Option<(f64, f64)> {
+    fit_at(y, m, w, degree).map(|(s, e, _, _)| (s, e))
 }
 
 /// Least-squares polynomial of degree 1 or 2 through (x, y): the intercept (value at
