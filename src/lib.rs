@@ -23,6 +23,7 @@ pub mod compare;
 pub mod config;
 pub mod detect;
 pub mod error;
+pub mod kind;
 pub mod linalg;
 pub mod model;
 pub mod report;

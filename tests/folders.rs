@@ -133,6 +133,19 @@ fn two_weight_files_say_which_was_read_and_file_picks_the_other() {
         picked["checkpoint"]["folder"]["reason"],
         "named with --file"
     );
+    assert_eq!(picked["checkpoint"]["folder"]["named"], true);
+    assert_eq!(folder["named"], false);
+    // The audit summary of a file named with --file says so, without the hint to pick one.
+    let audited = posaudit(&["audit", d, "--file", "model_ema.pt"]);
+    assert_ne!(audited.code, 2, "{}", audited.stderr);
+    assert!(
+        audited.stdout.contains(
+            "read model_ema.pt (named with --file); also in the folder, not read: model.safetensors\n"
+        ),
+        "{}",
+        audited.stdout
+    );
+    assert!(!audited.stdout.contains("pick one"), "{}", audited.stdout);
     let alone = Checkpoint::open(&fixture("formats/torch_numpy_table.pt")).unwrap();
     assert_eq!(
         picked["checkpoint"]["tensors"].as_u64().unwrap() as usize,

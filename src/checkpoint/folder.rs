@@ -136,7 +136,7 @@ pub(super) fn open_folder(
         .filter(|p| is_weight_file(p))
         .cloned()
         .collect();
-    let choice = |opened: &Opened, reason: String| {
+    let choice = |opened: &Opened, reason: String, named: bool| {
         let read: Vec<String> = opened.files.iter().map(|f| file_name(&f.path)).collect();
         let others = weights
             .iter()
@@ -149,6 +149,7 @@ pub(super) fn open_folder(
             files: read,
             reason,
             others,
+            named,
         }
     };
     if let Some(name) = file {
@@ -170,11 +171,11 @@ pub(super) fn open_folder(
             });
         }
         let opened = open_file(&target)?;
-        let c = choice(&opened, "named with --file".into());
+        let c = choice(&opened, "named with --file".into(), true);
         return Ok((opened, c));
     }
     let (opened, reason) = open_folder_default(dir, &names, &weights)?;
-    let c = choice(&opened, reason);
+    let c = choice(&opened, reason, false);
     Ok((opened, c))
 }
 

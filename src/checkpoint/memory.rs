@@ -11,7 +11,7 @@ use std::sync::Arc;
 
 use super::{Checkpoint, CheckpointError, Dtype, Format, SourceFile, Storage, TensorInfo};
 use crate::config::ConfigHints;
-use crate::detect::Kind;
+use crate::kind::Kind;
 
 /// One tensor held in memory.
 pub struct MemoryTensor {

@@ -396,6 +396,8 @@ pub struct FolderChoice {
     pub reason: String,
     /// Other weight files in the folder, not read (pick one with `--file NAME`).
     pub others: Vec<String>,
+    /// True when the file was named with `--file` (not chosen by posaudit).
+    pub named: bool,
 }
 
 /// An opened checkpoint: its files, its tensor index and the configuration hints.
@@ -421,7 +423,7 @@ pub struct Checkpoint {
     by_name: HashMap<String, usize>,
     /// Kinds given by the caller for some tensors (in-memory tables, [`memory`]): the
     /// detector takes them as given. Empty for checkpoints opened from files.
-    pub kind_hints: Vec<(String, crate::detect::Kind)>,
+    pub kind_hints: Vec<(String, crate::kind::Kind)>,
 }
 
 /// Checks the tensor names of an opened checkpoint against [`limits::MAX_NAME_BYTES`]

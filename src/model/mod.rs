@@ -72,14 +72,29 @@ impl CheckpointSummary {
             out.push(format!("hub cache: read {snap} ({why})"));
         }
         if !f.others.is_empty() {
+            // A file the user named needs no hint on how to pick one.
+            let hint = if f.named {
+                ""
+            } else {
+                " (pick one with --file NAME)"
+            };
             out.push(format!(
-                "read {} ({}); also in the folder, not read: {} (pick one with --file NAME)",
+                "read {} ({}); also in the folder, not read: {}{hint}",
                 f.files.join(", "),
                 f.reason,
                 f.others.join(", ")
             ));
         }
         out
+    }
+
+    /// The lines both terminal summaries print under their first line: how a folder
+    /// was resolved, the stand-ins, and each warning.
+    pub fn note_lines<'a>(&'a self, warnings: &'a [String]) -> impl Iterator<Item = String> + 'a {
+        self.folder_lines()
+            .into_iter()
+            .chain(self.stand_ins_line())
+            .chain(warnings.iter().map(|w| format!("warning: {w}")))
     }
 
     /// One sentence listing the stand-ins (`argparse.Namespace ×1, __main__.Config ×1

@@ -28,14 +28,8 @@ pub fn scan(report: &ScanReport) -> String {
     if let Some(cfg) = &report.config {
         let _ = writeln!(out, "config ({}): {}", cfg.source, cfg.summary());
     }
-    for line in c.folder_lines() {
+    for line in c.note_lines(&report.warnings) {
         let _ = writeln!(out, "{line}");
-    }
-    if let Some(line) = c.stand_ins_line() {
-        let _ = writeln!(out, "{line}");
-    }
-    for w in &report.warnings {
-        let _ = writeln!(out, "warning: {w}");
     }
     if !report.tables.is_empty() {
         out.push('\n');
@@ -94,14 +88,8 @@ pub fn audit(report: &AuditReport) -> String {
         s.warning,
         s.info
     );
-    for line in c.folder_lines() {
+    for line in c.note_lines(&report.warnings) {
         let _ = writeln!(out, "{line}");
-    }
-    if let Some(line) = c.stand_ins_line() {
-        let _ = writeln!(out, "{line}");
-    }
-    for w in &report.warnings {
-        let _ = writeln!(out, "warning: {w}");
     }
     if !report.tables.is_empty() {
         out.push('\n');
