@@ -8,7 +8,12 @@
 //! `\x89HDF\r\n\x1a\n`); LevelDB's `table_format.md` (a table, the layout of a TensorFlow
 //! checkpoint `.index`, ends with the magic 0xdb4775248b80fb57, little-endian); the bytes
 //! of `pickle.dumps({"pos": [1.0, 2.0]}, protocol=4)` from Python 3.11.7; the pickletools
-//! documentation for the GLOBAL opcode.
+//! documentation for the GLOBAL opcode; the CTranslate2 `model.bin` layout as the
+//! `ctranslate2` package writes it (`python/ctranslate2/specs/model_spec.py`,
+//! `ModelSpec._serialize`: u32 binary version (`CURRENT_BINARY_VERSION` = 6), the spec name
+//! as u16 length + 1, UTF-8 bytes and a NUL, u32 revision, u32 variable count, then per
+//! variable its name, u8 rank, u32 dims, u8 dtype id (0 = float32), u32 byte count and
+//! the bytes; then u32 alias count).
 
 mod common;
 
@@ -72,6 +77,55 @@ fn other_formats_are_named_by_their_magic() {
         &p,
         "is a text file, not a checkpoint (it starts with `<!DOCTYPE html>`)",
     );
+}
+
+/// A CTranslate2 `model.bin` laid out as `ModelSpec._serialize` writes it (see the
+/// module docs), holding one float32 variable.
+fn ctranslate2_model_bin() -> Vec<u8> {
+    fn string(out: &mut Vec<u8>, s: &str) {
+        out.extend_from_slice(&(s.len() as u16 + 1).to_le_bytes());
+        out.extend_from_slice(s.as_bytes());
+        out.push(0);
+    }
+    let mut out = Vec::new();
+    out.extend_from_slice(&6u32.to_le_bytes()); // binary version
+    string(&mut out, "TransformerSpec");
+    out.extend_from_slice(&1u32.to_le_bytes()); // revision
+    out.extend_from_slice(&1u32.to_le_bytes()); // one variable
+    string(&mut out, "encoder/position_encodings/encodings");
+    out.push(2); // rank
+    for dim in [4u32, 2] {
+        out.extend_from_slice(&dim.to_le_bytes());
+    }
+    out.push(0); // float32
+    out.extend_from_slice(&32u32.to_le_bytes());
+    for i in 0..8 {
+        out.extend_from_slice(&(i as f32).to_le_bytes());
+    }
+    out.extend_from_slice(&0u32.to_le_bytes()); // no aliases
+    out
+}
+
+#[test]
+fn a_ctranslate2_model_is_named() {
+    let dir = tempfile::tempdir().unwrap();
+    let bin = ctranslate2_model_bin();
+    let p = write(dir.path(), "model.bin", &bin);
+    let err = refused(
+        &p,
+        "is a CTranslate2 model (binary version 6, specification TransformerSpec), a format posaudit does not read",
+    );
+    assert!(!err.contains("pickle"), "{err}");
+    // A converted model's folder (model.bin beside config.json and a vocabulary) too.
+    write(dir.path(), "config.json", b"{\"unk_token\": \"<unk>\"}\n");
+    write(dir.path(), "shared_vocabulary.txt", b"<unk>\n<s>\n</s>\n");
+    let run = posaudit(&["audit", dir.path().to_str().unwrap()]);
+    assert_input_error(&run, "model.bin", "is a CTranslate2 model");
+    // The same bytes cut inside the spec name are no longer recognised as one.
+    let p = write(dir.path(), "cut.bin", &bin[..12]);
+    let run = posaudit(&["scan", p.to_str().unwrap()]);
+    assert_eq!(run.code, 2, "{}", run.stderr);
+    assert!(!run.stderr.contains("CTranslate2"), "{}", run.stderr);
 }
 
 /// A torch-like zip archive with the given `archive/data.pkl`, stored uncompressed.
