@@ -13,6 +13,10 @@
 //!   run as `decoder/step-0800/model.safetensors`, and the training setup's fact (README
 //!   there) that rows [256, 512) of the position table never got a gradient, so their
 //!   AdamW `exp_avg_sq` is exactly zero while rows [0, 256) are not.
+//! - `fixtures/formats/torch_object_arrays.pt`: written by `torch.save` (torch 2.15.0,
+//!   numpy 2.4.6; `generate_object_arrays.py`, `PROVENANCE_object_arrays.json`), with
+//!   NumPy arrays of Python objects beside a float32 table; `torch_object_arrays_expected.json`
+//!   is every NumPy array torch's full unpickler finds in it, with shape and dtype.
 
 mod common;
 
@@ -259,4 +263,82 @@ fn optimizer_moments_are_never_listed_as_position_tables() {
             "{cmd}"
         );
     }
+}
+
+#[test]
+fn numpy_object_arrays_are_listed_as_skipped_with_the_reason() {
+    let expected: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(fixture("formats/torch_object_arrays_expected.json")).unwrap(),
+    )
+    .unwrap();
+    let arrays = expected["torch_object_arrays.pt"].as_object().unwrap();
+    let ckpt = open("formats/torch_object_arrays.pt");
+    let mut want_numeric = Vec::new();
+    let mut want_objects = Vec::new();
+    for (name, a) in arrays {
+        let shape: Vec<usize> = a["shape"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|d| d.as_u64().unwrap() as usize)
+            .collect();
+        let t = ckpt
+            .tensor(name)
+            .unwrap_or_else(|| panic!("no tensor `{name}`"));
+        assert_eq!(t.shape, shape, "{name}: shape as torch.load sees it");
+        if a["dtype"] == "object" {
+            want_objects.push(name.clone());
+        } else {
+            want_numeric.push(name.clone());
+        }
+    }
+    assert_eq!(
+        want_objects.len(),
+        3,
+        "the generator writes three object arrays"
+    );
+
+    let run = posaudit(&[
+        "scan",
+        fixture("formats/torch_object_arrays.pt").to_str().unwrap(),
+        "--json",
+    ]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let doc: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+    let mut skipped: Vec<String> = doc["skipped"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|s| {
+            assert_eq!(s["dtype"], "object", "{s}");
+            assert!(
+                s["reason"]
+                    .as_str()
+                    .unwrap()
+                    .contains("a NumPy array of Python objects"),
+                "{s}"
+            );
+            s["name"].as_str().unwrap().to_string()
+        })
+        .collect();
+    skipped.sort();
+    want_objects.sort();
+    assert_eq!(skipped, want_objects);
+    let tables: Vec<&str> = doc["tables"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["name"].as_str().unwrap())
+        .collect();
+    assert_eq!(tables, want_numeric);
+    // The audit reads the numeric table and lists the same skipped arrays.
+    let run = posaudit(&[
+        "audit",
+        fixture("formats/torch_object_arrays.pt").to_str().unwrap(),
+        "--json",
+    ]);
+    assert_ne!(run.code, 2, "{}", run.stderr);
+    let doc: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+    assert_eq!(doc["skipped"].as_array().unwrap().len(), 3);
+    assert_eq!(doc["tables"][0]["name"], "pos_embed");
 }

@@ -126,6 +126,9 @@ impl Dtype {
     /// Why the analyses cannot read this type, or `None` when they can.
     pub fn unsupported_reason(&self) -> Option<String> {
         match self {
+            Dtype::Other { name } if name == crate::checkpoint::pickle::OBJECT_DTYPE => Some(
+                "a NumPy array of Python objects: its elements are pickles of their own, which posaudit never reads".to_string(),
+            ),
             Dtype::Other { name } => Some(format!(
                 "element type {name} is not analysable (only F64, F32, F16, BF16 tables and integer index buffers are)"
             )),

@@ -56,9 +56,15 @@ fn np_dtype(v: &Value) -> Result<(crate::checkpoint::Dtype, bool), String> {
     crate::checkpoint::numpy::dtype_of(&format!("{order}{code}"))
 }
 
+/// The element type given to a NumPy array of Python objects (dtype `O`): its elements
+/// are more pickles, never read, so the array is listed as skipped with
+/// [`crate::checkpoint::Dtype::unsupported_reason`].
+pub const OBJECT_DTYPE: &str = "object";
+
 /// Reads a pickled NumPy array or scalar. `None` when `o` is not one; an error when it
 /// is one but its state is not what NumPy writes, or its bytes do not match its shape.
-/// Arrays of Python objects (dtype `O`) are `None`: their elements are more pickles.
+/// An array of Python objects (dtype `O`, its data a list) comes back with its shape,
+/// no bytes and the element type [`OBJECT_DTYPE`]; an object scalar is `None`.
 pub fn ndarray_of(o: &Object) -> Option<Result<NdArray, String>> {
     let class = &*o.class;
     if class != NP_ARRAY && class != NP_SCALAR {
@@ -106,14 +112,31 @@ pub fn ndarray_of(o: &Object) -> Option<Result<NdArray, String>> {
             let data = match &rest[3] {
                 Value::Bytes(b) => b.clone(),
                 Value::Str(s) => Rc::from(latin1(s)?),
-                // A list of Python objects: an object array.
-                _ => return Ok(None),
+                // A list of Python objects: an object array, listed but not read.
+                _ => {
+                    return Ok(Some(NdArray {
+                        dtype: crate::checkpoint::Dtype::Other {
+                            name: OBJECT_DTYPE.into(),
+                        },
+                        big_endian: false,
+                        shape,
+                        fortran,
+                        data: Rc::from(Vec::new()),
+                    }));
+                }
             };
             (rest[1].clone(), shape, fortran, data)
         };
         let (dtype, big_endian) = match np_dtype(&dtype_v) {
             Ok(d) => d,
-            Err(e) if e.contains("Python objects") => return Ok(None),
+            // An object scalar: its value is a pickle of its own.
+            Err(e) if e.contains("Python objects") && class == NP_SCALAR => return Ok(None),
+            Err(e) if e.contains("Python objects") => (
+                crate::checkpoint::Dtype::Other {
+                    name: OBJECT_DTYPE.into(),
+                },
+                false,
+            ),
             Err(e) => return Err(e),
         };
         let numel = shape

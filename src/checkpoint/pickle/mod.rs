@@ -30,7 +30,7 @@ mod globals;
 mod machine;
 
 use arrays::{NP_ARRAY, NP_DTYPE, NP_SCALAR, latin1};
-pub use arrays::{NdArray, ndarray_of};
+pub use arrays::{NdArray, OBJECT_DTYPE, ndarray_of};
 pub use globals::{GlobalClass, classify_global};
 use machine::{Machine, u64_tuple};
 
