@@ -134,20 +134,9 @@ impl Checkpoint {
 
     /// Reads a whole tensor as f64.
     pub fn read_f64(&self, t: &TensorInfo) -> Result<ArrayD<f64>, CheckpointError> {
-        self.check_budget(t, t.numel())?;
-        let bytes = self.storage_bytes(t)?;
-        self.check_readable(t, &bytes)?;
-        let n = t.numel();
-        let mut out = Vec::with_capacity(n);
-        for flat in 0..n {
-            let idx = Self::storage_index(t, flat);
-            // check_readable proved every index is inside the storage.
-            out.push(
-                t.dtype
-                    .decode(&bytes, idx, t.big_endian)
-                    .unwrap_or(f64::NAN),
-            );
-        }
+        let out = self.read_all(t, |bytes, idx| {
+            t.dtype.decode(bytes, idx, t.big_endian).unwrap_or(f64::NAN)
+        })?;
         ArrayD::from_shape_vec(IxDyn(&t.shape), out).map_err(|e| {
             CheckpointError::invalid(
                 &self.file_of(t).map(|f| f.path.clone()).unwrap_or_default(),
@@ -218,20 +207,28 @@ impl Checkpoint {
                 ),
             ));
         }
+        let out = self.read_all(t, |bytes, idx| {
+            t.dtype
+                .decode_int(bytes, idx, t.big_endian)
+                .unwrap_or(i64::MIN)
+        })?;
+        Ok(Array1::from(out))
+    }
+
+    /// Every element of `t` in C order, decoded by `decode(storage, storage index)`,
+    /// after the budget and readability checks (which prove every index is inside the
+    /// storage).
+    fn read_all<T>(
+        &self,
+        t: &TensorInfo,
+        decode: impl Fn(&[u8], usize) -> T,
+    ) -> Result<Vec<T>, CheckpointError> {
         self.check_budget(t, t.numel())?;
         let bytes = self.storage_bytes(t)?;
         self.check_readable(t, &bytes)?;
-        let n = t.numel();
-        let mut out = Vec::with_capacity(n);
-        for flat in 0..n {
-            let idx = Self::storage_index(t, flat);
-            out.push(
-                t.dtype
-                    .decode_int(&bytes, idx, t.big_endian)
-                    .unwrap_or(i64::MIN),
-            );
-        }
-        Ok(Array1::from(out))
+        Ok((0..t.numel())
+            .map(|flat| decode(&bytes, Self::storage_index(t, flat)))
+            .collect())
     }
 }
 
