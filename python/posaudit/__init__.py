@@ -139,17 +139,31 @@ def _path(p: Optional[PathLike]) -> Optional[str]:
     return None if p is None else os.fspath(p)
 
 
-def scan(path: PathLike, tables: Optional[Union[str, Sequence[str]]] = None) -> Dict[str, Any]:
+def _file(name: Optional[str]) -> Optional[str]:
+    if name is None:
+        return None
+    if not isinstance(name, str):
+        raise InputError(f"file must be the name of a file in the folder, got {type(name).__name__}")
+    return name
+
+
+def scan(
+    path: PathLike,
+    tables: Optional[Union[str, Sequence[str]]] = None,
+    file: Optional[str] = None,
+) -> Dict[str, Any]:
     """The position tables of a checkpoint (``posaudit scan PATH --json``).
 
     ``path`` is a checkpoint file or a folder holding one; ``tables`` names tensors to
-    classify even if the detector passed them over (``--table``)::
+    classify even if the detector passed them over (``--table``); ``file`` names the
+    weight file of the folder to read instead of the one posaudit would choose
+    (``--file NAME``)::
 
         >>> doc = posaudit.scan("examples/demo/checkpoints/showcase")
         >>> doc["schema"]
         'posaudit/scan/v1'
     """
-    return json.loads(_native.scan_json(os.fspath(path), _names(tables)))
+    return json.loads(_native.scan_json(os.fspath(path), _names(tables), _file(file)))
 
 
 def audit(
@@ -157,10 +171,11 @@ def audit(
     tables: Optional[Union[str, Sequence[str]]] = None,
     out: Optional[PathLike] = None,
     fail_on: Optional[str] = None,
+    file: Optional[str] = None,
 ) -> Dict[str, Any]:
     """Analyse every position table of a checkpoint (``posaudit audit PATH --json``).
 
-    ``out`` writes the same report folder as ``--out`` (``report.md``, its SVG plots,
+    ``file`` reads that weight file of the folder ``path`` (``--file NAME``). ``out`` writes the same report folder as ``--out`` (``report.md``, its SVG plots,
     ``report.json``). ``fail_on="warning"`` or ``"error"`` raises :class:`FindingsError`
     when a finding at or above that level exists (after ``out`` is written)::
 
@@ -169,7 +184,9 @@ def audit(
         ['untrained-tail']
     """
     level = _fail_on_level(fail_on)
-    doc = json.loads(_native.audit_json(os.fspath(path), _names(tables), _path(out)))
+    doc = json.loads(
+        _native.audit_json(os.fspath(path), _names(tables), _path(out), _file(file))
+    )
     return _gate(doc, level)
 
 

@@ -18,12 +18,17 @@ class FindingsError(Exception):
     def __init__(self, message: str, report: Document, level: str) -> None: ...
 
 def worst(report: Document) -> Optional[str]: ...
-def scan(path: PathLike, tables: Optional[Union[str, Sequence[str]]] = ...) -> Document: ...
+def scan(
+    path: PathLike,
+    tables: Optional[Union[str, Sequence[str]]] = ...,
+    file: Optional[str] = ...,
+) -> Document: ...
 def audit(
     path: PathLike,
     tables: Optional[Union[str, Sequence[str]]] = ...,
     out: Optional[PathLike] = ...,
     fail_on: Optional[str] = ...,
+    file: Optional[str] = ...,
 ) -> Document: ...
 def compare(
     paths: Sequence[PathLike],

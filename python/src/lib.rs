@@ -82,30 +82,31 @@ fn run_cli(py: Python<'_>, argv: Vec<OsString>) -> u8 {
     py.detach(move || cli_run::run(argv))
 }
 
-/// `posaudit scan PATH [--table NAME]... --json`, as JSON text.
+/// `posaudit scan PATH [--table NAME]... [--file NAME] --json`, as JSON text.
 #[pyfunction]
-#[pyo3(signature = (path, tables=Vec::new()))]
-fn scan_json(py: Python<'_>, path: PathBuf, tables: Vec<String>) -> PyResult<String> {
+#[pyo3(signature = (path, tables=Vec::new(), file=None))]
+fn scan_json(
+    py: Python<'_>,
+    path: PathBuf,
+    tables: Vec<String>,
+    file: Option<String>,
+) -> PyResult<String> {
     py.detach(move || {
-        let report = scan::run(&scan::ScanOptions {
-            path,
-            tables,
-            file: None,
-        })
-        .map_err(lib_error)?;
+        let report = scan::run(&scan::ScanOptions { path, tables, file }).map_err(lib_error)?;
         json_text(&report).map_err(lib_error)
     })
     .map_err(input_error)
 }
 
-/// `posaudit audit PATH [--table NAME]... [--out DIR] --json`, as JSON text.
+/// `posaudit audit PATH [--table NAME]... [--file NAME] [--out DIR] --json`, as JSON text.
 #[pyfunction]
-#[pyo3(signature = (path, tables=Vec::new(), out=None))]
+#[pyo3(signature = (path, tables=Vec::new(), out=None, file=None))]
 fn audit_json(
     py: Python<'_>,
     path: PathBuf,
     tables: Vec<String>,
     out: Option<PathBuf>,
+    file: Option<String>,
 ) -> PyResult<String> {
     py.detach(move || {
         prepare(out.as_deref())?;
@@ -113,7 +114,7 @@ fn audit_json(
             path,
             tables,
             threads: 1,
-            file: None,
+            file,
         };
         let report = audit::run(&options, &mut |_, _, _| {}).map_err(lib_error)?;
         finish(&report, out.as_deref(), posaudit::report::audit_files)

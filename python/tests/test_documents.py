@@ -8,7 +8,7 @@ import pathlib
 import pytest
 
 import posaudit
-from conftest import DEMO, cli_json
+from conftest import DEMO, cli_error, cli_json
 
 # Every demo checkpoint (relative to the repository root, as the demo reports use them).
 SINGLE = sorted(
@@ -42,6 +42,29 @@ def test_scan_and_audit_with_a_forced_table_equal_cli(binary, in_repo):
     assert posaudit.audit(path, tables=[names[0]]) == cli_json(
         binary, "audit", path, "--table", names[0]
     )
+
+
+def test_file_picks_a_weight_file_of_the_folder_as_the_cli_does(binary, in_repo, tmp_path):
+    # A folder with two weight files (the conventional name and an EMA copy), as the
+    # folder tests of the binary build it; both files are demo checkpoints.
+    import shutil
+
+    shutil.copy(f"{SINGLE[0]}/model.safetensors", tmp_path / "model.safetensors")
+    shutil.copy(f"{SINGLE[1]}/model.safetensors", tmp_path / "model_ema.safetensors")
+    folder = str(tmp_path)
+    picked = posaudit.audit(folder, file="model_ema.safetensors")
+    assert picked == cli_json(binary, "audit", folder, "--file", "model_ema.safetensors")
+    assert picked["checkpoint"]["folder"]["files"] == ["model_ema.safetensors"]
+    assert picked["checkpoint"]["folder"]["named"] is True
+    assert posaudit.scan(folder, file="model_ema.safetensors") == cli_json(
+        binary, "scan", folder, "--file", "model_ema.safetensors"
+    )
+    default = posaudit.audit(folder)
+    assert default["checkpoint"]["folder"]["files"] == ["model.safetensors"]
+    assert default["checkpoint"]["folder"]["named"] is False
+    with pytest.raises(posaudit.InputError) as e:
+        posaudit.audit(folder, file="missing.safetensors")
+    assert str(e.value) == cli_error(binary, "audit", folder, "--file", "missing.safetensors")
 
 
 @pytest.mark.parametrize(
