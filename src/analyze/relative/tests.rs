@@ -1,20 +1,7 @@
 use super::*;
 use ndarray::Array2;
 
-/// Deterministic normal samples (xorshift64* + Box–Muller) for invented noise.
-struct Noise(u64);
-impl Noise {
-    fn uniform(&mut self) -> f64 {
-        self.0 ^= self.0 >> 12;
-        self.0 ^= self.0 << 25;
-        self.0 ^= self.0 >> 27;
-        ((self.0.wrapping_mul(0x2545_F491_4F6C_DD1D) >> 11) as f64 + 0.5) / (1u64 << 53) as f64
-    }
-    fn normal(&mut self) -> f64 {
-        let (u, v) = (self.uniform(), self.uniform());
-        (-2.0 * u.ln()).sqrt() * (2.0 * std::f64::consts::PI * v).cos()
-    }
-}
+use crate::testutil::Rng;
 
 #[test]
 fn t5_bidirectional_buckets_match_the_published_table() {
@@ -97,7 +84,7 @@ fn bucket_16_is_unreachable_only_in_bidirectional_mode() {
 /// Invented T5-like encoder table: each head decays with |distance| at its own rate on
 /// both sides, row 16 holds init noise of std 0.05, one head (5) is pure init noise.
 fn invented_encoder_table(seed: u64, row16_scale: f64) -> Array2<f64> {
-    let mut noise = Noise(seed);
+    let mut noise = Rng::new(seed);
     let mut t = Array2::<f64>::zeros((32, 8));
     for h in 0..8 {
         for b in 0..32 {
@@ -256,7 +243,7 @@ fn swin_tables_decode_to_offset_maps() {
     assert!(a.untrained_heads.is_empty());
     assert!(a.unreachable.is_empty());
     // Noise of the init scale is flagged (invented, std 0.02).
-    let mut n = Noise(11);
+    let mut n = Rng::new(11);
     let t = Array2::from_shape_fn((169, 4), |_| 0.02 * n.normal());
     let a = analyze_swin(t.view(), Some((7, 7)), Some(0.02));
     assert!(a.untrained_heads.len() >= 3, "{:?}", a.head_trends);
