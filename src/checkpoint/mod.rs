@@ -21,6 +21,7 @@ pub mod onnx;
 pub mod pickle;
 pub mod pytorch;
 pub mod safetensors;
+pub mod write;
 
 use std::borrow::Cow;
 use std::collections::HashMap;
