@@ -133,15 +133,15 @@ pub fn run(options: &ExtendOptions) -> Result<ExtendReport> {
     let info = ckpt
         .tensor(&options.table)
         .ok_or_else(|| usage(format!("{shown_in}: no tensor `{}`", options.table)))?;
+    let table = ckpt.read_table(info)?;
+    let config = read_config_json(&input_dir);
+    let edit = plan(options, &ckpt, audit, &table, config.as_ref(), &shown_in)?;
     if !encode::encodable(&info.dtype) {
         return Err(usage(format!(
             "{shown_in}: `{}` is stored as {}; extend writes F64, F32, F16 or BF16 tables",
             options.table, info.dtype
         )));
     }
-    let table = ckpt.read_table(info)?;
-    let config = read_config_json(&input_dir);
-    let edit = plan(options, &ckpt, audit, &table, config.as_ref(), &shown_in)?;
     let mut plan = edit.plan;
     let mut replacements = vec![Replacement {
         name: options.table.clone(),
