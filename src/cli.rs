@@ -67,6 +67,26 @@ macro_rules! compare_examples {
     };
 }
 
+macro_rules! extend_examples {
+    () => {
+        "Examples:
+  posaudit extend examples/demo/checkpoints/text-base --table tern.embeddings.position_embeddings.weight --to 4096 --method interpolate --out tern-4096
+      resample the 512 trained positions to 4096 (linear); config.json says 4096
+  posaudit extend ckpt --table wpe.weight --to 2048 --method cubic --out ckpt-2048 --dry-run
+      print the plan (rows, method, new shape, config keys) and write nothing
+  posaudit extend ckpt --table wpe.weight --method reinit --rows untrained --std 0.02 --seed 7 --out ckpt-reinit
+      redraw only the rows the audit calls untrained
+  posaudit extend ckpt --table wpe.weight --to 4096 --method copy --out ckpt-4096 --json
+      tile the trained rows to 4096 positions; the document as JSON
+  posaudit extend examples/demo/checkpoints/vision-grid --table kittiwake.vision.embeddings.position_embeddings --grid 16x16 --method bicubic --out kittiwake-128
+      resize the 12x12 patch grid to 16x16, class row kept; image_size 96 -> 128
+  posaudit extend examples/demo/checkpoints/encoder-fixed-bf16-angles --table whimbrel.encoder.embed_positions.weight --method regenerate --out whimbrel-exact --force
+      recompute a sine/cosine table from its fitted formula in f64, rounded once
+  posaudit extend shards/ --file model.safetensors.index.json --table pos.weight --to 8192 --method interpolate --out shards-8k --threads 2
+      a sharded checkpoint: the same shards and index, only the table's shard changes"
+    };
+}
+
 /// The sentence on exit codes, shared by the long help of every command.
 macro_rules! exit_codes {
     () => {
@@ -169,6 +189,181 @@ pub enum Command {
         after_long_help = concat!(compare_examples!(), "\n\n", exit_codes!())
     )]
     Compare(CompareArgs),
+    /// Write an extended or repaired position table into a new checkpoint
+    ///
+    /// Audits the input (read-only), then writes a NEW checkpoint folder with
+    /// one table rebuilt: a learned 1-D table extended or shrunk to --to N
+    /// positions (interpolate, cubic, copy, reinit; --rows untrained replaces
+    /// only the rows the audit calls untrained), a patch grid resized to
+    /// --grid HxW (bilinear, bicubic; class rows kept), or a fixed sine/cosine
+    /// table regenerated from its fitted formula (regenerate). Rows the family
+    /// reserves before position 0 stay where they are. Every other tensor is
+    /// copied byte for byte, streamed; metadata is kept; shards stay shards.
+    /// config.json is updated (maximum positions, image size), each change
+    /// listed. The new checkpoint is audited and the table's verdict before
+    /// and after printed. A synthesised table must be fine-tuned before it is
+    /// trusted.
+    #[command(
+        verbatim_doc_comment,
+        after_help = extend_examples!(),
+        after_long_help = concat!(extend_examples!(), "\n\n", exit_codes!())
+    )]
+    Extend(ExtendArgs),
+}
+
+/// `--method` of `extend`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ExtendMethod {
+    /// Learned 1-D: resample the trained rows along position, linear.
+    Interpolate,
+    /// Learned 1-D: resample the trained rows, cubic convolution.
+    Cubic,
+    /// Learned 1-D: tile the trained rows.
+    Copy,
+    /// Learned 1-D: keep trained rows, draw the rest from N(0, std^2).
+    Reinit,
+    /// Grid: bilinear resize.
+    Bilinear,
+    /// Grid: bicubic resize.
+    Bicubic,
+    /// Fixed sine/cosine: the fitted formula in f64, rounded once.
+    Regenerate,
+}
+
+/// `--rows` of `extend`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ExtendRows {
+    /// Every position row rebuilt from the trained rows.
+    All,
+    /// Only the rows the audit calls untrained (and new rows).
+    Untrained,
+}
+
+/// Parses `HxW` (e.g. `16x16`).
+fn grid_size(s: &str) -> Result<(usize, usize), String> {
+    let (h, w) = s
+        .split_once(['x', 'X'])
+        .ok_or_else(|| format!("`{s}` is not HxW (e.g. 16x16)"))?;
+    let n = |t: &str| t.trim().parse::<usize>().ok().filter(|&v| v > 0);
+    match (n(h), n(w)) {
+        (Some(h), Some(w)) => Ok((h, w)),
+        _ => Err(format!(
+            "`{s}` is not HxW with positive H and W (e.g. 16x16)"
+        )),
+    }
+}
+
+/// Arguments of `extend`.
+#[derive(Debug, clap::Args)]
+pub struct ExtendArgs {
+    /// The input checkpoint: a .safetensors file, or a folder holding one or its shards
+    ///
+    /// Opened read-only, exactly as `audit` opens it (config.json beside the
+    /// weights read for hints). Only safetensors inputs can be extended; the
+    /// output has the same files (one, or the same shards and index).
+    #[arg(value_name = "PATH", verbatim_doc_comment)]
+    pub path: PathBuf,
+    /// The table to rebuild (exact tensor name, as `posaudit scan` lists it)
+    ///
+    /// Must be a learned-absolute, fixed-sinusoidal or learned-grid-2d table
+    /// (a tensor the detector passed over is analysed as with audit --table).
+    /// An unknown name is an error that suggests the closest names.
+    #[arg(long, value_name = "NAME", verbatim_doc_comment)]
+    pub table: String,
+    /// New number of positions of a 1-D table (rows after the reserved rows)
+    ///
+    /// Positions, not rows: for a family that reserves rows before position 0
+    /// (OPT, RoBERTa padding rows) the new table has those rows plus N. The
+    /// config's maximum-positions keys change by the same number of rows.
+    /// Default: the current number (with --rows untrained or regenerate).
+    #[arg(long, value_name = "N", verbatim_doc_comment)]
+    pub to: Option<usize>,
+    /// New grid size of a learned-grid-2d table, HxW (e.g. 16x16)
+    ///
+    /// The h x w patch rows are resized to H x W; extra rows before the grid
+    /// (class, distillation, register tokens) are kept as they are. The
+    /// config's image_size becomes H x patch_size when the old one was h x
+    /// patch_size.
+    #[arg(long, value_name = "HxW", value_parser = grid_size, verbatim_doc_comment)]
+    pub grid: Option<(usize, usize)>,
+    /// How the new rows are made
+    ///
+    /// interpolate / cubic: the trained rows resampled along position to N
+    /// (align_corners=True: first and last trained rows kept, new position j
+    /// reads trained position j(t-1)/(N-1); cubic is Keys' kernel, a=-0.75).
+    /// copy: the trained rows tiled. reinit: trained rows kept, the others
+    /// drawn from N(0, std^2). bilinear / bicubic: grids (align_corners=False).
+    /// regenerate: fixed sine/cosine tables, fitted formula in f64, rounded
+    /// once to the stored type (fixes low-precision).
+    #[arg(long, value_name = "METHOD", value_enum, verbatim_doc_comment)]
+    pub method: ExtendMethod,
+    /// Which rows of a learned 1-D table are replaced
+    ///
+    /// all (default): every position row is rebuilt from the trained rows (the
+    /// rows before the untrained tail the audit reports). untrained: only the
+    /// rows the audit calls untrained (and any new rows); trained rows stay
+    /// bit for bit (copy: tail only; interpolate: gaps between trained rows).
+    #[arg(long, value_name = "WHICH", value_enum, default_value_t = ExtendRows::All, verbatim_doc_comment)]
+    pub rows: ExtendRows,
+    /// Standard deviation of re-initialised rows (reinit)
+    ///
+    /// Default: the config's initializer_range, else the audit's estimate from
+    /// the untrained rows; without either, --std is required. The document
+    /// says which was used.
+    #[arg(long, value_name = "STD", verbatim_doc_comment)]
+    pub std: Option<f64>,
+    /// Seed of the re-initialised rows (reinit)
+    ///
+    /// The same seed gives the same rows on every machine (SplitMix64 and
+    /// Box-Muller; the distribution of normal_(0, std), not torch's values).
+    /// Default: 0.
+    #[arg(long, value_name = "N", default_value_t = 0, verbatim_doc_comment)]
+    pub seed: u64,
+    /// The new checkpoint folder (created; must not exist unless --force)
+    ///
+    /// Never the input's folder nor inside it. Gets the weight file(s) with the
+    /// same names as the input's, config.json updated, and the other small
+    /// files of the input folder (tokenizer files) copied.
+    #[arg(long, value_name = "DIR", verbatim_doc_comment)]
+    pub out: PathBuf,
+    /// Print the plan and write nothing
+    ///
+    /// Rows kept and synthesised, method, new shape, config keys that would
+    /// change, the table's current verdict. The output folder is still checked
+    /// (it must be new), so the real run will not fail on it.
+    #[arg(long, verbatim_doc_comment)]
+    pub dry_run: bool,
+    /// Allow an existing --out folder; files of the same names are replaced
+    ///
+    /// Each file is written under a temporary name and renamed, so a replaced
+    /// file is never half-written. The input folder is refused even so.
+    #[arg(long, verbatim_doc_comment)]
+    pub force: bool,
+    /// Print the JSON document on stdout instead of the summary
+    ///
+    /// Schema posaudit/extend/v1: the input, the plan, the files written, the
+    /// config changes, the table's audit before and after, and the cautions.
+    /// Nothing else goes to stdout.
+    #[arg(long, verbatim_doc_comment)]
+    pub json: bool,
+    /// A weight file of the folder PATH to read, when it holds several
+    ///
+    /// As for audit: a file name inside the folder, e.g. `--file
+    /// model.safetensors.index.json`. Default: the one audit would read.
+    #[arg(long, value_name = "NAME", verbatim_doc_comment)]
+    pub file: Option<String>,
+    /// Threads for the linear algebra of the two audits
+    ///
+    /// As for audit: 1 (the default) is the fastest on small or shared
+    /// machines; more help only on large tables. 0 is refused.
+    #[arg(
+        long,
+        value_name = "N",
+        default_value_t = 1,
+        value_parser = clap::builder::TypedValueParser::map(clap::value_parser!(u64).range(1..), |n| n as usize),
+        verbatim_doc_comment
+    )]
+    pub threads: usize,
 }
 
 /// The level at which `--fail-on` makes the exit code 1.
@@ -444,7 +639,7 @@ mod tests {
             .map(|c| c.get_name().to_string())
             .filter(|n| n != "help")
             .collect();
-        assert_eq!(names, ["scan", "audit", "compare"]);
+        assert_eq!(names, ["scan", "audit", "compare", "extend"]);
         for name in &names {
             let sub = cli.find_subcommand_mut(name).unwrap();
             let long = sub.render_long_help().to_string();

@@ -10,7 +10,7 @@ use std::path::Path;
 
 use crate::cli::{self, Cli, Command, FailOn};
 use clap::Parser;
-use posaudit::commands::{audit, compare, scan};
+use posaudit::commands::{audit, compare, extend, scan};
 use posaudit::model::Severity;
 use posaudit::report::{self, output, terminal};
 use posaudit::{Error, Result};
@@ -136,6 +136,41 @@ fn dispatch(cli: Cli) -> Result<u8> {
                 files,
             };
             deliver(rendered, args.out.as_deref(), args.json)?;
+            Ok(0)
+        }
+        Command::Extend(args) => {
+            let method = match args.method {
+                cli::ExtendMethod::Interpolate => extend::Method::Interpolate,
+                cli::ExtendMethod::Cubic => extend::Method::Cubic,
+                cli::ExtendMethod::Copy => extend::Method::Copy,
+                cli::ExtendMethod::Reinit => extend::Method::Reinit,
+                cli::ExtendMethod::Bilinear => extend::Method::Bilinear,
+                cli::ExtendMethod::Bicubic => extend::Method::Bicubic,
+                cli::ExtendMethod::Regenerate => extend::Method::Regenerate,
+            };
+            // The new checkpoint folder is extend's own output, written by the command
+            // (through checkpoint::write); stdout is written here.
+            let report = extend::run(&extend::ExtendOptions {
+                path: args.path,
+                file: args.file,
+                table: args.table,
+                to: args.to,
+                grid: args.grid,
+                method,
+                untrained_only: args.rows == cli::ExtendRows::Untrained,
+                std: args.std,
+                seed: args.seed,
+                out: args.out,
+                dry_run: args.dry_run,
+                force: args.force,
+                threads: args.threads,
+            })?;
+            let rendered = Rendered {
+                json: output::json_text(&report)?,
+                terminal: report::extend::terminal(&report),
+                files: Vec::new(),
+            };
+            deliver(rendered, None, args.json)?;
             Ok(0)
         }
     }

@@ -22,6 +22,7 @@ pub mod commands;
 pub mod compare;
 pub mod config;
 pub mod detect;
+pub mod edit;
 pub mod error;
 pub mod kind;
 pub mod linalg;

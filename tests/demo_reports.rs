@@ -78,6 +78,24 @@ const REPORTS: &[DemoReport] = &[
         ],
     },
     DemoReport {
+        name: "text-base-4096",
+        args: &[
+            "audit",
+            "examples/demo/checkpoints/text-base-4096",
+            "--threads",
+            "1",
+        ],
+    },
+    DemoReport {
+        name: "vision-grid-16x16",
+        args: &[
+            "audit",
+            "examples/demo/checkpoints/vision-grid-16x16",
+            "--threads",
+            "1",
+        ],
+    },
+    DemoReport {
         name: "compare-run-a",
         args: &[
             "compare",

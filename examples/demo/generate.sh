@@ -11,3 +11,4 @@ fi
 "$venv/bin/pip" install -q "numpy==2.4.6" "safetensors==0.8.0" "ml_dtypes==0.7.0"
 "$venv/bin/python" "$here/generate.py"
 echo "demo checkpoints written under $here/checkpoints (hashes in $here/PROVENANCE.json)"
+echo "generate.py rewrote checkpoints/ from scratch: re-create the edited ones (text-base-4096, vision-grid-16x16) with POSAUDIT_BLESS_DEMO=1 cargo test --test demo_edits"

@@ -21,6 +21,7 @@ pub mod onnx;
 pub mod pickle;
 pub mod pytorch;
 pub mod safetensors;
+pub mod write;
 
 mod folder;
 mod foreign;

@@ -10,6 +10,7 @@
 
 pub mod audit;
 pub mod compare;
+pub mod extend;
 pub mod scan;
 
 use std::path::Path;

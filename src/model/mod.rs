@@ -10,10 +10,12 @@
 //! - [`scan`]: the `posaudit/scan/v1` document.
 //! - [`audit`]: the `posaudit/audit/v1` document, one [`audit::TableAudit`] per table.
 //! - [`compare`]: the `posaudit/compare/v1` document.
+//! - [`extend`]: the `posaudit/extend/v1` document (plan, files written, before/after).
 //! - [`finding`]: [`Finding`], its [`FindingCode`]s and [`Severity`].
 
 pub mod audit;
 pub mod compare;
+pub mod extend;
 pub mod finding;
 pub mod scan;
 

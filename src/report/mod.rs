@@ -1,7 +1,8 @@
 //! The renderers: each turns a document of [`crate::model`] into text or SVG, and
 //! computes nothing the document does not hold.
 //!
-//! - [`terminal`]: the summaries printed on stdout (scan, audit, compare).
+//! - [`terminal`]: the summaries printed on stdout (scan, audit, compare); [`extend`]:
+//!   the summary of `posaudit extend`.
 //! - [`markdown`]: `report.md` of an audit or a comparison.
 //! - [`figures`]: which plots a report has and how each is drawn, with [`plots`]
 //!   (the hand-written SVG renderer) doing the drawing.
@@ -11,6 +12,7 @@
 //! The wording pieces they share (ranges, plurals, escaping, short names) are in
 //! [`crate::text`], which the verdict messages use too.
 
+pub mod extend;
 pub mod figures;
 pub mod markdown;
 pub mod output;
