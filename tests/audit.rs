@@ -184,6 +184,43 @@ fn an_exact_vaswani_table_is_recognised_with_its_parameters() {
 }
 
 #[test]
+fn an_exact_vaswani_table_stored_in_f16_has_no_norm_outlier() {
+    // The same formula (Vaswani et al. 2017 §3.5) rounded to float16 by numpy
+    // (fixtures/generate.py): every row norm is sqrt(d/2) = 8 (check-values §1.3) up to
+    // the f16 rounding of its values. Their spread is rounding: the outlier score floors
+    // it at f16's half-ULP at the norm's scale (2^-8 for values in [8, 16), IEEE 754
+    // binary16), and a table that matches its formula gets no norm outlier at all.
+    let doc = audit_json(
+        fixture("audit/vaswani-1024x128-f16.safetensors")
+            .to_str()
+            .unwrap(),
+    );
+    let t = &doc["tables"][0];
+    assert_eq!(t["kind"], "fixed-sinusoidal");
+    assert_eq!(t["dtype"], "F16");
+    assert!(t["verdict"].as_str().unwrap().starts_with("exact sinusoid"));
+    let norms = &t["profile"]["norms"];
+    let spread = norms["norms"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| (v.as_f64().unwrap() / 8.0 - 1.0).abs())
+        .fold(0.0, f64::max);
+    assert!(spread < 7e-5, "norms within f16 rounding of 8: {spread:e}");
+    assert_eq!(norms["storage_resolution"].as_f64(), Some(2f64.powi(-8)));
+    assert!(
+        norms["outliers"].as_array().unwrap().is_empty(),
+        "{}",
+        norms["outliers"]
+    );
+    assert!(
+        codes(t).is_empty(),
+        "no finding on an exact table: {:?}",
+        codes(t)
+    );
+}
+
+#[test]
 fn a_fairseq_split_table_with_padding_row_is_recognised() {
     // fairseq get_embedding (check-values §2.2): sin half then cos half,
     // ω_i = 10000^(-i/(d/2-1)), padding row zeroed.

@@ -34,6 +34,21 @@ pub struct NormProfile {
     /// Modified z-score of each row (dimensionless); None for rows with a non-finite
     /// norm. See [`modified_z_scores`] for the zero-MAD case.
     pub modified_z: Vec<Option<f64>>,
+    /// The storage precision the spread of the norms was floored at: half an ULP of the
+    /// stored type at the median norm's scale (None when the type is not known). Norms
+    /// that differ by less than this are equal as stored, so their MAD says nothing.
+    pub storage_resolution: Option<f64>,
+}
+
+/// Half an ULP of a float type at the scale of `x`, from the type's half-ULP for values
+/// in [0.5, 1) (`half_ulp_below_one`, e.g. 2^-12 for f16): values in [2^e, 2^(e+1)) have
+/// half-ULP `half_ulp_below_one · 2^(e+1)`. None for a zero or non-finite `x`.
+pub fn half_ulp_at(x: f64, half_ulp_below_one: f64) -> Option<f64> {
+    if x == 0.0 || !x.is_finite() {
+        return None;
+    }
+    let e = x.abs().log2().floor() as i32;
+    Some(half_ulp_below_one * 2f64.powi(e + 1))
 }
 
 /// Computes the row-norm profile of `table` (positions × dim).
@@ -49,6 +64,16 @@ pub struct NormProfile {
 /// Empty tables give empty lists and None statistics; a table with no columns has norm 0
 /// for every row.
 pub fn norm_profile(table: ArrayView2<f64>) -> NormProfile {
+    norm_profile_stored(table, None)
+}
+
+/// [`norm_profile`] of a table stored in a type whose half-ULP for values in [0.5, 1) is
+/// `half_ulp_below_one` (`Dtype::half_ulp_below_one`): the MAD of the outlier score is
+/// floored at half an ULP of that type at the median norm's scale (common practice:
+/// differences below the storage precision are rounding, not signal). An exact sinusoid
+/// stored in f16 has every norm within a few 1e-5 (relative) of sqrt(d/2), all of it
+/// rounding; without the floor its MAD is that rounding and two rows reach z 3.5.
+pub fn norm_profile_stored(table: ArrayView2<f64>, half_ulp_below_one: Option<f64>) -> NormProfile {
     let norms: Vec<f64> = table
         .axis_iter(Axis(0))
         .map(|r| {
@@ -81,7 +106,10 @@ pub fn norm_profile(table: ArrayView2<f64>) -> NormProfile {
             _ => None,
         }
     };
-    let modified_z = modified_z_scores(ndarray::ArrayView1::from(&norms[..]));
+    let storage_resolution =
+        half_ulp_below_one.and_then(|h| median.and_then(|m| half_ulp_at(m, h)));
+    let modified_z =
+        modified_z_scores_floored(ndarray::ArrayView1::from(&norms[..]), storage_resolution);
     let outliers = modified_z
         .iter()
         .enumerate()
@@ -96,6 +124,7 @@ pub fn norm_profile(table: ArrayView2<f64>) -> NormProfile {
         end_to_start_ratio,
         outliers,
         modified_z,
+        storage_resolution,
     }
 }
 
@@ -114,12 +143,21 @@ pub fn norm_profile(table: ArrayView2<f64>) -> NormProfile {
 /// When the floored MAD is still 0 (median 0 and more than half the values 0), values
 /// equal to the median get `Some(0.0)` and all others `Some(±inf)`.
 pub fn modified_z_scores(x: ArrayView1<f64>) -> Vec<Option<f64>> {
+    modified_z_scores_floored(x, None)
+}
+
+/// [`modified_z_scores`] with the MAD floored at `resolution` too (the precision the
+/// values were stored in), when given.
+pub fn modified_z_scores_floored(x: ArrayView1<f64>, resolution: Option<f64>) -> Vec<Option<f64>> {
     let values: Vec<f64> = x.iter().copied().filter(|v| v.is_finite()).collect();
     let Some(med) = median_of(&values) else {
         return vec![None; x.len()];
     };
     let deviations: Vec<f64> = values.iter().map(|v| (v - med).abs()).collect();
-    let mad = median_of(&deviations).unwrap_or(0.0).max(1e-9 * med.abs());
+    let mad = median_of(&deviations)
+        .unwrap_or(0.0)
+        .max(1e-9 * med.abs())
+        .max(resolution.filter(|r| r.is_finite()).unwrap_or(0.0));
     x.iter()
         .map(|&v| {
             if !v.is_finite() {
@@ -200,6 +238,28 @@ mod tests {
         for (a, b) in z.iter().zip(want) {
             assert!((a.unwrap() - b).abs() < 1e-12);
         }
+    }
+
+    #[test]
+    fn the_spread_is_floored_at_the_storage_half_ulp_of_the_median_norm() {
+        // IEEE 754 binary16 has an 11-bit significand: values in [1024, 2048) are spaced
+        // by 1 (half-ULP 0.5) and values in [0.5, 1) by 2^-11 (half-ULP 2^-12).
+        let f16 = 2f64.powi(-12);
+        assert_eq!(half_ulp_at(1500.0, f16), Some(0.5));
+        assert_eq!(half_ulp_at(0.75, f16), Some(f16));
+        assert_eq!(half_ulp_at(8.0, f16), Some(2f64.powi(-8)));
+        assert_eq!(half_ulp_at(0.0, f16), None);
+        // Invented: norms 8 ± a few 1e-4 (below f16's half-ULP 2^-8 at 8) with one row at
+        // 8 + 1e-3: an outlier against the unfloored MAD, rounding against the floored one.
+        let mut t = Array2::from_shape_fn((41, 1), |(i, _)| 8.0 + 1e-4 * ((i % 5) as f64 - 2.0));
+        t[[20, 0]] = 8.0 + 1e-3;
+        assert_eq!(norm_profile(t.view()).outliers, vec![20]);
+        let stored = norm_profile_stored(t.view(), Some(f16));
+        assert!(stored.outliers.is_empty());
+        assert_eq!(stored.storage_resolution, Some(2f64.powi(-8)));
+        // A real outlier (norm 9, far beyond rounding) is still one.
+        t[[20, 0]] = 9.0;
+        assert_eq!(norm_profile_stored(t.view(), Some(f16)).outliers, vec![20]);
     }
 
     #[test]

@@ -11,6 +11,7 @@
 //! in the analyses or the report changes.
 
 mod archive;
+pub mod ctranslate2;
 pub mod dtype;
 pub mod ggml_quants;
 pub mod gguf;
@@ -57,6 +58,8 @@ pub enum Format {
     Memory,
     /// ONNX model (`.onnx`, with external data files).
     Onnx,
+    /// CTranslate2 `model.bin`.
+    Ctranslate2,
 }
 
 impl std::fmt::Display for Format {
@@ -68,6 +71,7 @@ impl std::fmt::Display for Format {
             Format::Gguf => "gguf",
             Format::Memory => "memory",
             Format::Onnx => "onnx",
+            Format::Ctranslate2 => "ctranslate2",
         })
     }
 }
@@ -499,6 +503,10 @@ pub fn sniff(path: &Path, bytes: &[u8]) -> Option<Format> {
     if bytes.starts_with(b"\x80\x02\x8a\x0a") {
         return Some(Format::Pytorch);
     }
+    // CTranslate2 has no magic number: a small version and a spec name (`WhisperSpec`).
+    if ctranslate2::looks_like(bytes) {
+        return Some(Format::Ctranslate2);
+    }
     let ext = path
         .extension()
         .map(|e| e.to_string_lossy().to_ascii_lowercase())
@@ -627,6 +635,7 @@ fn open_file(path: &Path) -> Result<Opened, CheckpointError> {
         Some(Format::Numpy) => numpy::open(path, file),
         Some(Format::Gguf) => gguf::open(file),
         Some(Format::Onnx) => onnx::open(file),
+        Some(Format::Ctranslate2) => ctranslate2::open(file),
         None | Some(Format::Memory) => {
             // An unknown extension: try safetensors' header as the last resort, since it
             // has no magic number.

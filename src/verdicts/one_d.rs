@@ -74,7 +74,10 @@ fn declared_rows(name: &str, config: Option<&ConfigHints>) -> Option<(usize, Str
     Some((declared + offset, why))
 }
 
-fn profile(table: &Array2<f64>) -> (Profile, Cow<'_, Array2<f64>>, Vec<usize>) {
+fn profile<'a>(
+    table: &'a Array2<f64>,
+    dtype: &Dtype,
+) -> (Profile, Cow<'a, Array2<f64>>, Vec<usize>) {
     let hygiene = hygiene::hygiene(table.view());
     // Copy the table only when some rows must be dropped.
     let (t, kept) = if hygiene.non_finite_count == 0 {
@@ -86,7 +89,7 @@ fn profile(table: &Array2<f64>) -> (Profile, Cow<'_, Array2<f64>>, Vec<usize>) {
     let n = t.nrows();
     let profile = Profile {
         analysed_rows: n,
-        norms: norms::norm_profile(t.view()),
+        norms: norms::norm_profile_stored(t.view(), dtype.half_ulp_below_one()),
         neighbour_cosine: neighbours::adjacent_cosines(t.view()),
         locality: neighbours::locality_profile(
             t.view(),
@@ -115,7 +118,7 @@ pub fn audit_table(
     let (n, d) = table.dim();
     audit.positions = Some(n);
     audit.dim = Some(d);
-    let (mut prof, finite, kept) = profile(table);
+    let (mut prof, finite, kept) = profile(table, dtype);
     let h = &prof.hygiene;
     if h.non_finite_count > 0 {
         for r in &h.non_finite_rows {
@@ -162,10 +165,16 @@ pub fn audit_table(
 .evidence(why)
 .limits("Some families add reserved rows this tool does not know; check how the model computes position indices."));
     }
-    match audit.kind {
+    // A fixed table that is its formula (exactly, or as the simulated low-precision
+    // computation reproduces it) has every row norm sqrt(d/2) by construction
+    // (check-values §1.3): differences between its norms are rounding, not outliers.
+    let matches_formula = match audit.kind {
         Kind::FixedSinusoidal => fixed(audit, &finite, dtype),
-        _ => learned(audit, &finite, &kept, &prof, config),
-    }
+        _ => {
+            learned(audit, &finite, &kept, &prof, config);
+            false
+        }
+    };
     // Zero rows: padding rows are normal in fixed tables and RoBERTa-style learned ones.
     let zero = &prof.hygiene.zero_rows;
     if !zero.is_empty() {
@@ -199,7 +208,7 @@ pub fn audit_table(
         .collect();
     // A handful of outliers is informative; a fifth of the rows "out" means the norms
     // are simply spread (common in trained tables), so say nothing.
-    if !outliers.is_empty() && outliers.len() <= (n / 50).max(1) {
+    if !matches_formula && !outliers.is_empty() && outliers.len() <= (n / 50).max(1) {
         audit.findings.push(Finding::info(FindingCode::NormOutlier, format!("{} row(s) have a norm far from the others (robust z > 3.5), e.g. rows {:?}.", outliers.len(), &outliers[..outliers.len().min(6)]))
 .ranges(ranges_from_rows(outliers.iter().copied()))
 .evidence(format!("median row norm {:.4}", prof.norms.median.unwrap_or(f64::NAN)))
@@ -443,7 +452,9 @@ fn learned(
     audit.untrained = Some(report);
 }
 
-fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
+/// The formula fit of a fixed table; true when the table is its formula (exact, or the
+/// reproduced low-precision computation of it).
+fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) -> bool {
     let half_ulp = dtype.half_ulp_below_one().unwrap_or(2f64.powi(-25));
     let Some(fit) = sinusoid::fit_sinusoid(table.view(), half_ulp) else {
         audit.verdict = "not a sine/cosine table".into();
@@ -451,7 +462,7 @@ fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
 .rows([0, table.nrows()])
 .evidence("no pairing of columns has sin² + cos² constant across rows (median radius spread above 10%)")
 .limits("If the table is meant to be learned, this is expected; if it is meant to be the formula, it was overwritten or trained."));
-        return;
+        return false;
     };
     let mismatch_tolerance = (16.0 * half_ulp * fit.scale.max(1e-12)).max(1e-2 * fit.scale);
     let describe = format!(
@@ -464,7 +475,9 @@ fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
         fit.max_abs_error
     );
     let p = &fit.precision;
+    let matches;
     if p.computed_in_low_precision {
+        matches = true;
         audit.verdict = format!(
             "sinusoid computed in {}: {describe}",
             p.best_match.as_deref().unwrap_or("low precision")
@@ -489,15 +502,18 @@ fn fixed(audit: &mut TableAudit, table: &Array2<f64>, dtype: &Dtype) {
             ))
 .limits("A model trained with this table has learned around its errors; recomputing it exactly changes what the model sees. Fix it for new training runs."));
     } else if fit.max_abs_error > mismatch_tolerance {
+        matches = false;
         audit.verdict = format!("not the formula it resembles: {describe}");
         audit.findings.push(Finding::error(FindingCode::SinusoidMismatch, format!("The table resembles a sinusoid but differs from the best-fitting formula by up to {:.3} (worst at row {}).", fit.max_abs_error, fit.worst_row))
 .rows([fit.worst_row, fit.worst_row + 1])
 .evidence(format!("best fit: {describe}; tolerance {mismatch_tolerance:.2e}"))
 .limits("A fixed table that was trained, edited or resized by interpolation drifts from the formula; compare with the code that builds it."));
     } else {
+        matches = true;
         audit.verdict = format!("exact sinusoid: {describe}");
     }
     audit.sinusoid = Some(fit);
+    matches
 }
 
 fn serde_plain<T: Serialize>(v: &T) -> String {
