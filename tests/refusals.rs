@@ -107,20 +107,40 @@ fn ctranslate2_model_bin() -> Vec<u8> {
 }
 
 #[test]
-fn a_ctranslate2_model_is_named() {
+fn a_ctranslate2_model_is_read_and_a_newer_version_is_named() {
+    // The layout `ModelSpec._serialize` writes (binary version 6) is read: its variable is
+    // listed with the stored shape and type.
     let dir = tempfile::tempdir().unwrap();
     let bin = ctranslate2_model_bin();
     let p = write(dir.path(), "model.bin", &bin);
-    let err = refused(
-        &p,
-        "is a CTranslate2 model (binary version 6, specification TransformerSpec), a format posaudit does not read",
-    );
-    assert!(!err.contains("pickle"), "{err}");
+    let run = posaudit(&["scan", p.to_str().unwrap(), "--json"]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let doc: serde_json::Value = serde_json::from_str(&run.stdout).unwrap();
+    assert_eq!(doc["checkpoint"]["format"], "ctranslate2");
+    assert_eq!(doc["checkpoint"]["tensors"], 1);
     // A converted model's folder (model.bin beside config.json and a vocabulary) too.
     write(dir.path(), "config.json", b"{\"unk_token\": \"<unk>\"}\n");
     write(dir.path(), "shared_vocabulary.txt", b"<unk>\n<s>\n</s>\n");
-    let run = posaudit(&["audit", dir.path().to_str().unwrap()]);
-    assert_input_error(&run, "model.bin", "is a CTranslate2 model");
+    let run = posaudit(&["scan", dir.path().to_str().unwrap(), "--json"]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    // A later binary version than the library's current one is named, not misread.
+    let mut newer = bin.clone();
+    newer[..4].copy_from_slice(&7u32.to_le_bytes());
+    let p = write(dir.path(), "newer.bin", &newer);
+    let err = refused(
+        &p,
+        "CTranslate2 model: binary version 7 is newer than the versions posaudit reads",
+    );
+    assert!(!err.contains("pickle"), "{err}");
+    // A byte count that disagrees with the shape is one line naming the variable.
+    let mut bad = bin.clone();
+    let at = bad.len() - 4 - 32 - 4;
+    bad[at..at + 4].copy_from_slice(&28u32.to_le_bytes());
+    let p = write(dir.path(), "bad.bin", &bad);
+    refused(
+        &p,
+        "declares 28 bytes, but its shape [4, 2] of F32 needs 32",
+    );
     // The same bytes cut inside the spec name are no longer recognised as one.
     let p = write(dir.path(), "cut.bin", &bin[..12]);
     let run = posaudit(&["scan", p.to_str().unwrap()]);

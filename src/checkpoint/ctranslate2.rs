@@ -22,6 +22,9 @@ use super::{CheckpointError, Dtype, Format, Opened, SourceFile, Storage, TensorI
 
 /// Highest binary version known (the library's current one).
 const MAX_VERSION: u32 = 6;
+/// Versions still recognised as CTranslate2 (and refused by name) though not read: a
+/// little margin above [`MAX_VERSION`] for later versions of the library.
+const RECOGNISED_VERSIONS: std::ops::RangeInclusive<u32> = 1..=8;
 /// Most variables a file may declare.
 const MAX_VARIABLES: u32 = 1 << 20;
 /// Most dimensions of one variable.
@@ -33,7 +36,7 @@ pub fn looks_like(bytes: &[u8]) -> bool {
     let Some(version) = read_u32(bytes, 0) else {
         return false;
     };
-    if !(1..=MAX_VERSION).contains(&version) {
+    if !RECOGNISED_VERSIONS.contains(&version) {
         return false;
     }
     if version == 1 {
@@ -43,12 +46,14 @@ pub fn looks_like(bytes: &[u8]) -> bool {
     let Some(len) = read_u16(bytes, 4) else {
         return false;
     };
+    // A spec name is an identifier (`TransformerSpec`, `WhisperSpec`): 1..=128 ASCII
+    // letters, digits or `_` and its NUL; the revision and the variable count follow.
     let len = len as usize;
-    let Some(name) = bytes.get(6..6 + len) else {
+    if !(2..=129).contains(&len) || bytes.len() < 6 + len + 8 {
         return false;
-    };
-    len >= 2
-        && name[len - 1] == 0
+    }
+    let name = &bytes[6..6 + len];
+    name[len - 1] == 0
         && name[..len - 1]
             .iter()
             .all(|b| b.is_ascii_alphanumeric() || *b == b'_')
@@ -159,7 +164,7 @@ pub fn parse(bytes: &[u8]) -> Result<Header, String> {
     let version = r.u32("the binary version")?;
     if !(1..=MAX_VERSION).contains(&version) {
         return Err(format!(
-            "CTranslate2 binary version {version} is not one posaudit reads (1..={MAX_VERSION})"
+            "binary version {version} is newer than the versions posaudit reads (1..={MAX_VERSION}): audit the checkpoint it was converted from"
         ));
     }
     let spec = if version >= 2 {

