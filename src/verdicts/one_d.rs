@@ -294,40 +294,83 @@ fn learned(
         ),
         None => String::new(),
     };
-    let evidence = format!(
-        "untrained rows: median neighbour cosine {} (independent rows give a median of {:.3}: the largest of up to 6 cosines, each ~ N(0, 1/{})), median rms {}, median energy in the trained rows' leading subspace {} (noise gives {}); trained rows: median neighbour cosine {}, rms {}, subspace energy {}; init std {}{decay_text}",
-        fmt_opt(ev.untrained.median_neighbour_cosine),
-        ev.noise_neighbour_cosine_median,
-        ev.dim,
-        fmt_opt(ev.untrained.median_rms),
-        fmt_opt(ev.untrained.median_subspace_energy),
-        fmt_opt(ev.subspace_noise_expected),
+    let init_text = match (ev.init_std_hint, ev.init_std_estimate) {
+        (Some(h), Some(e)) => format!("{h} from config, {e:.4} estimated"),
+        (Some(h), None) => format!("{h} from config"),
+        (None, Some(e)) => format!("{e:.4} estimated"),
+        _ => "unknown".into(),
+    };
+    let trained_text = format!(
+        "trained rows: median neighbour cosine {}, rms {}, subspace energy {}",
         fmt_opt(ev.trained.median_neighbour_cosine),
         fmt_opt(ev.trained.median_rms),
         fmt_opt(ev.trained.median_subspace_energy),
-        match (ev.init_std_hint, ev.init_std_estimate) {
-            (Some(h), Some(e)) => format!("{h} from config, {e:.4} estimated"),
-            (Some(h), None) => format!("{h} from config"),
-            (None, Some(e)) => format!("{e:.4} estimated"),
-            _ => "unknown".into(),
-        }
     );
-    let limits = "Evidence from the weights alone: these rows look like initial noise (one common scale at or below the init std, Gaussian values, off the trained rows' subspace, unrelated to their neighbours). Confirm on held-out sequences that reach these positions before re-initialising, truncating or extending from them.";
-    // The fading stretch, in table rows: short untrained runs inside it are the noisy
-    // edge of the fade (a weakly trained row crosses the per-row threshold by chance), so
-    // they are told in the partially-trained finding instead of as separate warnings.
-    let fading_span = (!report.fading.is_empty()).then(|| {
+    // The numbers of a finding's own rows (analysed-row range), beside the trained rows'
+    // and what independent noise gives: each finding carries the evidence for its rows.
+    let signals = &report.signals;
+    let own = |r: [usize; 2], with_decay: bool| -> String {
+        let pick = |v: &Vec<f64>| -> Option<f64> {
+            let part: Vec<f64> = v
+                .get(r[0]..r[1].min(v.len()))
+                .unwrap_or(&[])
+                .iter()
+                .copied()
+                .filter(|x| x.is_finite())
+                .collect();
+            median(&part)
+        };
+        format!(
+            "{}: median neighbour cosine {} (independent rows give a median of {:.3}: the largest of up to 6 cosines, each ~ N(0, 1/{})), median rms {}, median energy in the trained rows' leading subspace {} (noise gives {}); {trained_text}; init std {init_text}{}",
+            if r[1] == r[0] + 1 {
+                "this row"
+            } else {
+                "these rows"
+            },
+            fmt_opt(pick(&signals.neighbour_cosine)),
+            ev.noise_neighbour_cosine_median,
+            ev.dim,
+            fmt_opt(pick(&signals.rms)),
+            fmt_opt(pick(&signals.subspace_energy)),
+            fmt_opt(ev.subspace_noise_expected),
+            if with_decay { decay_text.as_str() } else { "" },
+        )
+    };
+    // Table rows back to analysed rows (the inverse of `to_table` on kept rows).
+    let to_analysed = |r: [usize; 2]| -> [usize; 2] {
         [
-            to_table(report.fading[0])[0],
-            to_table(report.fading[report.fading.len() - 1])[1],
+            kept.partition_point(|&k| k < r[0]),
+            kept.partition_point(|&k| k < r[1]),
         ]
+    };
+    let limits = "Evidence from the weights alone: these rows look like initial noise (one common scale at or below the init std, Gaussian values, off the trained rows' subspace, unrelated to their neighbours). Confirm on held-out sequences that reach these positions before re-initialising, truncating or extending from them.";
+    // The fading stretch, in table rows, up to the start of the untrained tail when one
+    // follows it: short untrained runs inside that region are the noisy edge of the fade
+    // (a weakly trained row crosses the per-row threshold by chance), so they are told in
+    // the partially-trained finding instead of as separate warnings. Short: at most 3
+    // rows, or a sixteenth of the region.
+    let tail_start = report
+        .ranges
+        .last()
+        .map(|r| to_table(*r))
+        .filter(|r| r[1] == n_all)
+        .map(|r| r[0]);
+    let fading_span = (!report.fading.is_empty()).then(|| {
+        let start = to_table(report.fading[0])[0];
+        let end = to_table(report.fading[report.fading.len() - 1])[1];
+        [start, tail_start.filter(|&t| t >= end).unwrap_or(end)]
     });
+    let short_in_fade = fading_span.map_or(0, |f| ((f[1] - f[0]) / 16).max(3));
     let mut within_fade: Vec<[usize; 2]> = Vec::new();
     for r in &report.ranges {
+        let r_analysed = *r;
         let r = to_table(*r);
         let tail = r[1] == n_all;
         let in_reserved = r[1] <= reserved;
-        if !tail && r[1] - r[0] < 3 && fading_span.is_some_and(|f| f[0] <= r[0] && r[1] <= f[1]) {
+        if !tail
+            && r[1] - r[0] <= short_in_fade
+            && fading_span.is_some_and(|f| f[0] <= r[0] && r[1] <= f[1])
+        {
             within_fade.push(r);
             continue;
         }
@@ -353,13 +396,18 @@ fn learned(
                 )
             })
 .rows(r)
-.evidence(evidence.clone())
+.evidence(own(r_analysed, !in_reserved))
 .limits(limits));
     }
     if !report.fading.is_empty() {
         // One finding for the whole fading stretch, however fragmented the rows are.
         let pieces: Vec<[usize; 2]> = report.fading.iter().map(|r| to_table(*r)).collect();
-        let r = [pieces[0][0], pieces[pieces.len() - 1][1]];
+        // The finding covers the fade and the untrained runs at its edge told in it.
+        let end = within_fade
+            .iter()
+            .map(|x| x[1])
+            .fold(pieces[pieces.len() - 1][1], usize::max);
+        let r = [pieces[0][0], end];
         let rows: usize = pieces.iter().map(|p| p[1] - p[0]).sum();
         audit.findings.push(Finding::info(FindingCode::PartiallyTrained, format!(
                 "{rows} rows between {} and {} move gradually from trained structure towards noise ({}): trained on few sequences that long.{}",
@@ -377,7 +425,7 @@ fn learned(
                 }
             ))
 .rows(r)
-.evidence(evidence.clone())
+.evidence(format!("across rows {}..{}: {}", r[0], r[1], own(to_analysed(r), false).trim_start_matches("these rows: ")))
 .limits("A fading range is the expected footprint of a length distribution with a thin tail; it is not a defect by itself."));
     }
     if let Some(p) = &report.phase_boundary {
