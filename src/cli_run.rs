@@ -128,6 +128,7 @@ fn dispatch(cli: Cli) -> Result<u8> {
             let report = compare::run(&compare::CompareOptions {
                 paths: args.paths,
                 tables: args.tables,
+                threads: args.threads,
             })?;
             let files = report::compare_files(&report);
             let rendered = Rendered {

@@ -44,6 +44,9 @@ pub struct CompareOptions {
     /// Restrict the comparison to these tensor names (treated as tables even if the
     /// detector would not); each must exist in at least one checkpoint.
     pub tables: Vec<String>,
+    /// Threads for the linear algebra; 0 leaves the current setting
+    /// ([`crate::linalg::set_threads`], 1 unless it was called). Results do not depend on it.
+    pub threads: usize,
 }
 
 /// One version of a table held in memory.
@@ -92,6 +95,9 @@ pub fn run_with(
     options: &CompareOptions,
     open: &dyn Fn(&Path) -> Result<Checkpoint>,
 ) -> Result<CompareReport> {
+    if options.threads > 0 {
+        crate::linalg::set_threads(options.threads);
+    }
     let (paths, forced) = (&options.paths[..], &options.tables[..]);
     if paths.len() < 2 {
         return Err(Error::Usage(format!(
