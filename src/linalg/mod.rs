@@ -406,6 +406,16 @@ pub fn leading_components(a: ArrayView2<f64>, k: usize) -> Result<Decomposition,
     Ok(dec)
 }
 
+/// All singular values of `a` by the exact SVD without vectors (absolute error of
+/// order `p·ε·σ₁`, as numpy's `gesdd`); cheaper than [`thin_svd`] by the vectors.
+pub fn exact_singular_values(a: ArrayView2<f64>) -> Result<Vec<f64>, LinalgError> {
+    check(a)?;
+    default_threads();
+    let mut values = backend::svd_values(a)?;
+    values.sort_by(|x, y| y.total_cmp(x));
+    Ok(values)
+}
+
 /// The exact thin SVD (all singular vectors), the slow path: `gesdd` with the `lapack`
 /// feature, faer's SVD otherwise.
 pub fn thin_svd(a: ArrayView2<f64>) -> Result<Decomposition, LinalgError> {
