@@ -64,6 +64,8 @@ macro_rules! compare_examples {
       two seeds: per-row change against rotation-invariant similarity
   posaudit compare old.safetensors new.bin --table model.embed_positions.weight --json
       one table across two formats, as JSON (schema posaudit/compare/v1)
+  posaudit compare run/step-1000 run/step-8000 --fail-on warning
+      CI gate: exit 1 when a table went missing, changed shape or holds NaN
   posaudit compare run/step-1000 run/step-8000 --threads 1
       on one core; the output is the same for every thread count"
     };
@@ -73,7 +75,7 @@ macro_rules! compare_examples {
 macro_rules! exit_codes {
     () => {
         "Exit codes: 0 done; 1 done, but a finding at or above --fail-on exists
-(audit only); 2 the input or the arguments could not be used (one line on stderr
+(audit and compare); 2 the input or the arguments could not be used (one line on stderr
 naming the file and the problem). The checkpoint is opened read-only and never
 modified."
     };
@@ -322,6 +324,14 @@ pub struct CompareArgs {
     /// findings. Nothing else goes to stdout. Combines with --out.
     #[arg(long, verbatim_doc_comment)]
     pub json: bool,
+    /// Exit with code 1 when a finding at or above LEVEL exists (CI gate)
+    ///
+    /// `warning` fails on warnings and errors, `error` only on errors. Levels:
+    /// `non-finite` is an error; `shape-changed` and `table-missing` are
+    /// warnings; `unchanged-rows` is info (never fails the gate). The report is
+    /// printed and written either way. Default: exit 0 whatever the findings.
+    #[arg(long, value_name = "LEVEL", value_enum, verbatim_doc_comment)]
+    pub fail_on: Option<FailOn>,
     /// Threads for the linear algebra
     ///
     /// Default: the cores this process may use. The output is the same, bit for
