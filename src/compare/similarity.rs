@@ -637,6 +637,82 @@ mod tests {
         }
     }
 
+    /// Columns of `m`, centred (orthogonal to the all-ones vector) and orthonormalised
+    /// by modified Gram–Schmidt, twice.
+    fn centred_orthonormal(m: &Array2<f64>) -> Array2<f64> {
+        let mut q = m - &m.mean_axis(ndarray::Axis(0)).unwrap();
+        for _ in 0..2 {
+            for j in 0..q.ncols() {
+                for i in 0..j {
+                    let d = q.column(i).dot(&q.column(j));
+                    let qi = q.column(i).to_owned();
+                    q.column_mut(j).scaled_add(-d, &qi);
+                }
+                let n = q.column(j).dot(&q.column(j)).sqrt();
+                q.column_mut(j).mapv_inplace(|v| v / n);
+            }
+        }
+        q
+    }
+
+    #[test]
+    fn gram_route_angles_match_a_known_answer_on_a_table_large_enough_for_lanczos() {
+        // Known answer by construction (definition of principal angles, Björck & Golub
+        // 1973): U_A = [u_i], U_B = [cos θ_i u_i + sin θ_i w_i] with u, w orthonormal,
+        // centred; both tables' leading k left singular subspaces are exactly these, so
+        // the principal angles are the θ_i. 600x300 with k = 12 takes the Lanczos path
+        // of the Gram route (p = 300 > 128, 10k < p). Tolerance 1e-8: the accuracy
+        // stated in `similarity`'s doc for an eigen-gap of this size.
+        let (n, d, k, tail) = (600, 300, 12, 40);
+        let mut rng = Rng::new(77);
+        let q = random_orthogonal(&mut rng, n);
+        let basis = centred_orthonormal(&q.slice(s![.., ..2 * k + tail]).to_owned());
+        let thetas: Vec<f64> = (0..k).map(|i| 0.02 + 0.1 * i as f64).collect();
+        let (u, w, t) = (
+            basis.slice(s![.., ..k]),
+            basis.slice(s![.., k..2 * k]),
+            basis.slice(s![.., 2 * k..]),
+        );
+        let mut ub = Array2::<f64>::zeros((n, k));
+        for i in 0..k {
+            let col = &u.column(i) * thetas[i].cos() + &w.column(i) * thetas[i].sin();
+            ub.column_mut(i).assign(&col);
+        }
+        let make = |lead: ndarray::ArrayView2<f64>, rng: &mut Rng| {
+            let v = random_orthogonal(rng, d);
+            let mut table = Array2::<f64>::zeros((n, d));
+            for i in 0..k {
+                let s = 10.0 * 0.8f64.powi(i as i32);
+                let outer = lead
+                    .column(i)
+                    .insert_axis(ndarray::Axis(1))
+                    .dot(&v.column(i).insert_axis(ndarray::Axis(0)));
+                table.scaled_add(s, &outer);
+            }
+            for j in 0..tail {
+                let outer = t
+                    .column(j)
+                    .insert_axis(ndarray::Axis(1))
+                    .dot(&v.column(k + j).insert_axis(ndarray::Axis(0)));
+                table.scaled_add(1e-3, &outer);
+            }
+            table + 3.0 // a common offset, removed by the centring
+        };
+        let a = make(u, &mut rng);
+        let b = make(ub.view(), &mut rng);
+        let o = SimilarityOptions {
+            k: Some(k),
+            ..SimilarityOptions::default()
+        };
+        let sim = similarity(a.view(), b.view(), &o).unwrap();
+        assert_eq!(sim.k, k);
+        for (got, want) in sim.principal_angles.iter().zip(&thetas) {
+            assert!((got - want).abs() < 1e-8, "angle {got} vs {want}");
+        }
+        let mean_cos2 = thetas.iter().map(|t| t.cos().powi(2)).sum::<f64>() / k as f64;
+        assert!((sim.subspace_similarity - mean_cos2).abs() < 1e-8);
+    }
+
     #[test]
     fn degenerate_inputs_give_explicit_errors() {
         let constant = Array2::from_elem((10, 4), 3.0);
