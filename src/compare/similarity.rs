@@ -674,8 +674,8 @@ mod tests {
             basis.slice(s![.., 2 * k..]),
         );
         let mut ub = Array2::<f64>::zeros((n, k));
-        for i in 0..k {
-            let col = &u.column(i) * thetas[i].cos() + &w.column(i) * thetas[i].sin();
+        for (i, theta) in thetas.iter().enumerate() {
+            let col = &u.column(i) * theta.cos() + &w.column(i) * theta.sin();
             ub.column_mut(i).assign(&col);
         }
         let make = |lead: ndarray::ArrayView2<f64>, rng: &mut Rng| {
