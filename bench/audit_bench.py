@@ -106,7 +106,7 @@ def run_audit(binary, path, out_path):
     """One `posaudit audit PATH --json`; returns (seconds, peak RSS in bytes)."""
     with open(out_path, "wb") as out:
         start = time.perf_counter()
-        proc = subprocess.Popen([binary, "audit", path, "--json"], stdout=out)
+        proc = subprocess.Popen([binary, "audit", path, "--json", "--threads", "1"], stdout=out)
         _, status, usage = os.wait4(proc.pid, 0)
         secs = time.perf_counter() - start
     code = os.waitstatus_to_exitcode(status)

@@ -63,7 +63,11 @@ macro_rules! compare_examples {
   posaudit compare run-a/step-8000 run-b/step-8000 --out seeds-report
       two seeds: per-row change against rotation-invariant similarity
   posaudit compare old.safetensors new.bin --table model.embed_positions.weight --json
-      one table across two formats, as JSON (schema posaudit/compare/v1)"
+      one table across two formats, as JSON (schema posaudit/compare/v1)
+  posaudit compare run/step-1000 run/step-8000 --fail-on warning
+      CI gate: exit 1 when a table went missing, changed shape or holds NaN
+  posaudit compare run/step-1000 run/step-8000 --threads 1
+      on one core; the output is the same for every thread count"
     };
 }
 
@@ -91,7 +95,7 @@ macro_rules! extend_examples {
 macro_rules! exit_codes {
     () => {
         "Exit codes: 0 done; 1 done, but a finding at or above --fail-on exists
-(audit only); 2 the input or the arguments could not be used (one line on stderr
+(audit and compare); 2 the input or the arguments could not be used (one line on stderr
 naming the file and the problem). The checkpoint is opened read-only and never
 modified."
     };
@@ -431,15 +435,14 @@ pub struct AuditArgs {
     pub fail_on: Option<FailOn>,
     /// Threads for the linear algebra
     ///
-    /// 1 (the default) is the fastest on small or shared machines. More threads
-    /// help only on large tables (thousands of rows and columns) with idle
-    /// cores; the last digits of the numbers may then differ from a one-thread
-    /// run. With the `lapack` build it also sets OpenBLAS's thread count.
+    /// Default: the cores this process may use. The output is the same, bit for
+    /// bit, for every thread count: the work is cut into pieces fixed by the
+    /// table shapes, and each sum runs in one order whatever thread computes it.
     /// 0 is refused.
     #[arg(
         long,
         value_name = "N",
-        default_value_t = 1,
+        default_value_t = posaudit::linalg::available_threads(),
         value_parser = clap::builder::TypedValueParser::map(clap::value_parser!(u64).range(1..), |n| n as usize),
         verbatim_doc_comment
     )]
@@ -516,6 +519,28 @@ pub struct CompareArgs {
     /// findings. Nothing else goes to stdout. Combines with --out.
     #[arg(long, verbatim_doc_comment)]
     pub json: bool,
+    /// Exit with code 1 when a finding at or above LEVEL exists (CI gate)
+    ///
+    /// `warning` fails on warnings and errors, `error` only on errors. Levels:
+    /// `non-finite` is an error; `shape-changed` and `table-missing` are
+    /// warnings; `unchanged-rows` is info (never fails the gate). The report is
+    /// printed and written either way. Default: exit 0 whatever the findings.
+    #[arg(long, value_name = "LEVEL", value_enum, verbatim_doc_comment)]
+    pub fail_on: Option<FailOn>,
+    /// Threads for the linear algebra
+    ///
+    /// Default: the cores this process may use. The output is the same, bit for
+    /// bit, for every thread count: the work is cut into pieces fixed by the
+    /// table shapes, and each sum runs in one order whatever thread computes it.
+    /// 0 is refused.
+    #[arg(
+        long,
+        value_name = "N",
+        default_value_t = posaudit::linalg::available_threads(),
+        value_parser = clap::builder::TypedValueParser::map(clap::value_parser!(u64).range(1..), |n| n as usize),
+        verbatim_doc_comment
+    )]
+    pub threads: usize,
 }
 
 /// Reports a command-line error. Help and version requests print as clap prints them

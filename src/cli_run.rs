@@ -125,10 +125,13 @@ fn dispatch(cli: Cli) -> Result<u8> {
             if let Some(dir) = &args.out {
                 output::prepare_dir(dir)?;
             }
-            let report = compare::run(&compare::CompareOptions {
+            let options = compare::CompareOptions {
                 paths: args.paths,
                 tables: args.tables,
-            })?;
+                threads: args.threads,
+            };
+            // On a terminal, a bar after a second of work (as for audit).
+            let report = with_progress(|progress| compare::run_progress(&options, progress))?;
             let files = report::compare_files(&report);
             let rendered = Rendered {
                 json: output::json_text(&report)?,
@@ -136,7 +139,10 @@ fn dispatch(cli: Cli) -> Result<u8> {
                 files,
             };
             deliver(rendered, args.out.as_deref(), args.json)?;
-            Ok(0)
+            Ok(match fail_level(args.fail_on) {
+                Some(level) if report.reaches(level) => 1,
+                _ => 0,
+            })
         }
         Command::Extend(args) => {
             let method = match args.method {

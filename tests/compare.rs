@@ -586,3 +586,39 @@ fn a_table_with_nan_is_a_finding_not_a_failure() {
         (Some("non-finite"), Some("error"))
     );
 }
+
+#[test]
+fn fail_on_gates_compare_by_the_documented_levels() {
+    // Levels from the README's compare findings table: table-missing is a warning, so
+    // --fail-on warning exits 1 and --fail-on error exits 0; without --fail-on, 0.
+    // Checkpoints: the demo's run-a step 8000 and vision grid hold different tables, so
+    // each table is missing from one of them (table-missing, a warning).
+    let run = |extra: &[&str]| {
+        std::process::Command::new(env!("CARGO_BIN_EXE_posaudit"))
+            .current_dir(env!("CARGO_MANIFEST_DIR"))
+            .args([
+                "compare",
+                "examples/demo/checkpoints/run-a/step-8000",
+                "examples/demo/checkpoints/vision-grid",
+                "--json",
+            ])
+            .args(extra)
+            .output()
+            .unwrap()
+    };
+    let plain = run(&[]);
+    assert_eq!(plain.status.code(), Some(0));
+    let doc: serde_json::Value = serde_json::from_slice(&plain.stdout).unwrap();
+    let severities: Vec<String> = doc["tables"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .flat_map(|t| t["findings"].as_array().unwrap().clone())
+        .map(|f| f["severity"].as_str().unwrap().to_string())
+        .collect();
+    let has = |s: &str| severities.iter().any(|x| x == s);
+    assert!(has("warning"), "{severities:?}");
+    assert_eq!(run(&["--fail-on", "warning"]).status.code(), Some(1));
+    let want_error = if has("error") { 1 } else { 0 };
+    assert_eq!(run(&["--fail-on", "error"]).status.code(), Some(want_error));
+}

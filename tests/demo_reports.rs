@@ -37,9 +37,8 @@ struct DemoReport {
 
 const CKPT: &str = "examples/demo/checkpoints";
 
-/// Every committed report. Audits run with `--threads 1` (also the default) so that
-/// the order of floating-point sums does not depend on the machine; `compare` is
-/// always sequential.
+/// Every committed report. Audits name `--threads 1`; the output does not depend on
+/// the thread count (checked by `demo_reports_are_bit_identical_for_one_and_two_threads`).
 const REPORTS: &[DemoReport] = &[
     DemoReport {
         name: "showcase",
@@ -368,6 +367,59 @@ fn committed_demo_reports_match_the_binary() {
                     report.args.join(" ")
                 );
             }
+        }
+    }
+}
+
+/// The command of `report` with `--threads n` (replacing the one it has, if any).
+fn with_threads(report: &DemoReport, n: &str) -> Vec<String> {
+    let mut args: Vec<String> = Vec::new();
+    let mut skip = false;
+    for a in report.args {
+        if skip {
+            skip = false;
+            continue;
+        }
+        if *a == "--threads" {
+            skip = true;
+            continue;
+        }
+        args.push(a.to_string());
+    }
+    args.extend(["--threads".to_string(), n.to_string()]);
+    args
+}
+
+#[test]
+fn demo_reports_are_bit_identical_for_one_and_two_threads() {
+    // Determinism (src/linalg/mod.rs, "Threads and determinism"): every file the
+    // command writes, JSON included, must be the same bytes whatever the thread count.
+    let tmp = tempfile::tempdir().unwrap();
+    for report in REPORTS {
+        let mut dirs = Vec::new();
+        for n in ["1", "2"] {
+            let out = tmp.path().join(format!("{}-{n}", report.name));
+            let args = with_threads(report, n);
+            let result = Command::new(env!("CARGO_BIN_EXE_posaudit"))
+                .current_dir(repo_root())
+                .args(&args)
+                .arg("--out")
+                .arg(&out)
+                .output()
+                .expect("the posaudit binary runs");
+            assert_eq!(result.status.code(), Some(0), "posaudit {}", args.join(" "));
+            dirs.push(out);
+        }
+        let names = file_names(&dirs[0]);
+        assert_eq!(names, file_names(&dirs[1]), "{}", report.name);
+        for name in names {
+            let a = fs::read(dirs[0].join(&name)).unwrap();
+            let b = fs::read(dirs[1].join(&name)).unwrap();
+            assert!(
+                a == b,
+                "{}/{name} differs between --threads 1 and --threads 2",
+                report.name
+            );
         }
     }
 }

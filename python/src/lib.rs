@@ -133,7 +133,11 @@ fn compare_json(
 ) -> PyResult<String> {
     py.detach(move || {
         prepare(out.as_deref())?;
-        let report = compare::run(&compare::CompareOptions { paths, tables }).map_err(lib_error)?;
+        let report = compare::run(&compare::CompareOptions {
+            paths,
+            tables,
+            ..Default::default()
+        }).map_err(lib_error)?;
         finish(&report, out.as_deref(), posaudit::report::compare_files)
     })
     .map_err(input_error)
@@ -297,6 +301,7 @@ fn compare_memory_json(
         let options = compare::CompareOptions {
             paths: paths.clone(),
             tables: names,
+            ..Default::default()
         };
         let report = compare::run_with(&options, &open).map_err(lib_error)?;
         finish(&report, out.as_deref(), posaudit::report::compare_files)

@@ -44,6 +44,9 @@ pub struct CompareOptions {
     /// Restrict the comparison to these tensor names (treated as tables even if the
     /// detector would not); each must exist in at least one checkpoint.
     pub tables: Vec<String>,
+    /// Threads for the linear algebra; 0 leaves the current setting
+    /// ([`crate::linalg::set_threads`], 1 unless it was called). Results do not depend on it.
+    pub threads: usize,
 }
 
 /// One version of a table held in memory.
@@ -92,6 +95,27 @@ pub fn run_with(
     options: &CompareOptions,
     open: &dyn Fn(&Path) -> Result<Checkpoint>,
 ) -> Result<CompareReport> {
+    run_with_progress(options, open, &mut |_, _, _| {})
+}
+
+/// [`run`] telling `progress` about each checkpoint as its tables are compared (its
+/// path, its index, the number of checkpoints), for a progress bar.
+pub fn run_progress(
+    options: &CompareOptions,
+    progress: &mut dyn FnMut(&str, usize, usize),
+) -> Result<CompareReport> {
+    run_with_progress(options, &open, progress)
+}
+
+/// [`run_with`] with a `progress` callback (see [`run_progress`]).
+pub fn run_with_progress(
+    options: &CompareOptions,
+    open: &dyn Fn(&Path) -> Result<Checkpoint>,
+    progress: &mut dyn FnMut(&str, usize, usize),
+) -> Result<CompareReport> {
+    if options.threads > 0 {
+        crate::linalg::set_threads(options.threads);
+    }
     let (paths, forced) = (&options.paths[..], &options.tables[..]);
     if paths.len() < 2 {
         return Err(Error::Usage(format!(
@@ -134,6 +158,7 @@ pub fn run_with(
     let mut ignored_ids: Vec<String> = Vec::new();
     let step_options = StepOptions::default();
     for (index, path) in paths.iter().enumerate() {
+        progress(&path.display().to_string(), index, n_ckpt);
         let ckpt = open(path)?;
         warnings.extend(ckpt.warnings.iter().map(|w| format!("[{index}] {w}")));
         let present: Vec<String> = forced

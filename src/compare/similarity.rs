@@ -40,12 +40,19 @@ use ndarray::{Array2, ArrayView2, Axis, s};
 use serde::Serialize;
 
 use super::{CompareError, check_table};
-use crate::linalg::{leading_components, thin_svd};
+use crate::linalg::{
+    Centring, GramSpectrum, cross_product, exact_singular_values, gram_spectrum, par_map, thin_svd,
+};
 
 /// Relative size below which a singular value of a centred table is treated as zero
-/// when capping k. The Gram-matrix path of [`crate::linalg`] recovers σ only to about
-/// `1.5e-8·σ₁`, so the cut sits well above that.
+/// when capping k (or the Gram route's resolution `sqrt(p·ε)·σ₁`, when larger: values
+/// below it are rounding noise, see [`crate::linalg::gram_spectrum`]).
 const RANK_CUT: f64 = 1e-6;
+
+/// Widest table for which the Procrustes residual is computed through the rotation
+/// itself (SVD with vectors, then `‖A R − B‖`); wider ones take the nuclear-norm route
+/// (see [`similarity`]).
+const PROCRUSTES_ROTATION_MAX_DIM: usize = 256;
 
 /// Settings for [`similarity`].
 #[derive(Debug, Clone, Serialize)]
@@ -165,9 +172,11 @@ fn energy_of(sv: &[f64], k: usize) -> f64 {
     sv.iter().take(k).map(|s| s * s).sum::<f64>() / total
 }
 
-fn numerical_rank(sv: &[f64]) -> usize {
+fn numerical_rank(spectrum: &GramSpectrum) -> usize {
+    let sv = &spectrum.decomposition.singular_values;
     let top = sv.first().copied().unwrap_or(0.0);
-    sv.iter().filter(|&&s| s > RANK_CUT * top).count()
+    let cut = (RANK_CUT * top).max(spectrum.resolution);
+    sv.iter().filter(|&&s| s > cut).count()
 }
 
 /// Compares two tables with the same number of rows (positions), possibly of different
@@ -185,6 +194,27 @@ fn numerical_rank(sv: &[f64]) -> usize {
 /// cka                    = ‖YᵀX‖_F² / (‖XᵀX‖_F ‖YᵀY‖_F)
 /// procrustes_residual    = min_{RᵀR=I} ‖A R − B‖_F / ‖B‖_F
 /// ```
+///
+/// # Route and accuracy
+/// The leading subspaces come from the Gram route ([`gram_spectrum`]: eigenvalues of
+/// `XᵀX` or `XXᵀ`, leading vectors by Lanczos to a residual of 1e-11·λ₁), the two
+/// tables as two independent tasks; `YᵀX` is one tiled product ([`cross_product`]),
+/// used for CKA and for Procrustes. Errors, with p = min(n, d) and ε = 2.2e-16:
+/// - principal angles: the basis of each leading subspace is off by an angle of at
+///   most about `1e-11·σ₁² / (σ_k² − σ_{k+1}²)` (residual over the eigen-gap after the
+///   k-th value), so angles and `subspace_similarity` carry that absolute error; with a
+///   gap of 1 % of σ₁² that is 1e-9. The tests hold them to
+///   `scipy.linalg.subspace_angles` at 1e-8 (tables with a known answer included).
+/// - k, `k_needed`, `energy_captured`: from eigenvalues with absolute error `p·ε·σ₁²`;
+///   values below `sqrt(p·ε)·σ₁` count as zero in the rank cap.
+/// - CKA: `‖YᵀX‖_F²` is a plain product, `‖XᵀX‖_F = sqrt(Σσ⁴)` from the eigenvalues:
+///   relative error of order `p·ε`.
+/// - Procrustes, tables up to 256 columns: through the rotation `R = U Vᵀ` of the SVD
+///   of `AᵀB` (exact). Wider: `‖A R − B‖² = ‖A‖² + ‖B‖² − 2‖AᵀB‖_*` (the maximum of
+///   `tr(Rᵀ AᵀB)` over orthogonal R is the nuclear norm), with the singular values of
+///   `AᵀB` from the exact SVD without vectors; the subtraction limits the residual to
+///   an absolute floor of about `sqrt(p·ε)` (5e-7 at 1024 columns), so residuals below
+///   1e-6 read as "zero".
 ///
 /// Edge cases: fewer than 2 rows, or a table that is constant across positions (zero
 /// after centring), give [`CompareError::NotEnoughData`]; different row counts give
@@ -214,8 +244,21 @@ pub fn similarity(
     }
     let (xa, xb) = (centre(a), centre(b));
     let cap = options.k.unwrap_or(options.k_max).max(1);
-    let da = leading_components(xa.view(), cap)?;
-    let db = leading_components(xb.view(), cap)?;
+    // The two spectra are independent: one task each (bit-identical for any thread count).
+    let mut spectra = par_map(2, |i| {
+        gram_spectrum(
+            if i == 0 { xa.view() } else { xb.view() },
+            cap,
+            Centring::None,
+        )
+    })
+    .into_iter();
+    let (Some(sa), Some(sb)) = (spectra.next(), spectra.next()) else {
+        return Err(CompareError::NotEnoughData("no spectrum".into()));
+    };
+    let (sa, sb) = (sa?, sb?);
+    let rank_cap = numerical_rank(&sa).min(numerical_rank(&sb));
+    let (da, db) = (sa.decomposition, sb.decomposition);
     for (dec, which) in [(&da, "first"), (&db, "second")] {
         if dec.singular_values.first().copied().unwrap_or(0.0) <= 0.0 {
             return Err(CompareError::NotEnoughData(format!(
@@ -228,7 +271,6 @@ pub fn similarity(
         k_for_energy(&da.singular_values, f),
         k_for_energy(&db.singular_values, f),
     ];
-    let rank_cap = numerical_rank(&da.singular_values).min(numerical_rank(&db.singular_values));
     let (wanted, mut reason) = match options.k {
         Some(k) => (k, format!("k = {k} requested")),
         None => (
@@ -261,14 +303,26 @@ pub fn similarity(
     let subspace_similarity = (m.iter().map(|v| v * v).sum::<f64>() / k as f64).clamp(0.0, 1.0);
     // ‖XᵀX‖_F = sqrt(Σσ⁴): reuse the singular values instead of forming XᵀX again.
     let gram_norm = |sv: &[f64]| sv.iter().map(|s| s.powi(4)).sum::<f64>().sqrt();
-    let hsic = cross_frob2(xa.view(), xb.view());
+    let (dim_a, dim_b) = (a.ncols(), b.ncols());
+    let cross = cross_product(xa.view(), xb.view());
+    let hsic = cross.iter().map(|v| v * v).sum::<f64>();
     let cka =
         (hsic / (gram_norm(&da.singular_values) * gram_norm(&db.singular_values))).clamp(0.0, 1.0);
-    let (dim_a, dim_b) = (a.ncols(), b.ncols());
-    let procrustes_residual = if dim_a.max(dim_b) <= options.procrustes_max_dim {
+    let widest = dim_a.max(dim_b);
+    let procrustes_residual = if widest > options.procrustes_max_dim {
+        None
+    } else if widest <= PROCRUSTES_ROTATION_MAX_DIM {
         Some(procrustes_residual(a, b)?)
     } else {
-        None
+        // ‖A R − B‖² = ‖A‖² + ‖B‖² − 2‖AᵀB‖_* at the optimal R, with A = xa·s_a and
+        // B = xb·s_b (s = each table's largest entry, the scale `centre` divided by).
+        let nuclear: f64 = exact_singular_values(cross.view())?.iter().sum();
+        let (na2, nb2) = (
+            xa.iter().map(|v| v * v).sum::<f64>(),
+            xb.iter().map(|v| v * v).sum::<f64>(),
+        );
+        let r = max_abs(a) / max_abs(b);
+        Some((r * r * na2 + nb2 - 2.0 * r * nuclear).max(0.0).sqrt() / nb2.sqrt())
     };
     let (nf, daf, dbf) = (n as f64, dim_a as f64, dim_b as f64);
     Ok(Similarity {
@@ -398,7 +452,7 @@ pub fn linear_cka(x: ArrayView2<f64>, y: ArrayView2<f64>) -> Result<f64, Compare
 
 /// ‖YᵀX‖_F² for centred X, Y with the same rows.
 fn cross_frob2(x: ArrayView2<f64>, y: ArrayView2<f64>) -> f64 {
-    y.t().dot(&x).iter().map(|v| v * v).sum()
+    cross_product(y, x).iter().map(|v| v * v).sum()
 }
 
 /// Orthogonal Procrustes residual of `a` onto `b` after centring (Schönemann 1966).
@@ -581,6 +635,82 @@ mod tests {
                 "{name}: mean excess {m}, se {se}"
             );
         }
+    }
+
+    /// Columns of `m`, centred (orthogonal to the all-ones vector) and orthonormalised
+    /// by modified Gram–Schmidt, twice.
+    fn centred_orthonormal(m: &Array2<f64>) -> Array2<f64> {
+        let mut q = m - &m.mean_axis(ndarray::Axis(0)).unwrap();
+        for _ in 0..2 {
+            for j in 0..q.ncols() {
+                for i in 0..j {
+                    let d = q.column(i).dot(&q.column(j));
+                    let qi = q.column(i).to_owned();
+                    q.column_mut(j).scaled_add(-d, &qi);
+                }
+                let n = q.column(j).dot(&q.column(j)).sqrt();
+                q.column_mut(j).mapv_inplace(|v| v / n);
+            }
+        }
+        q
+    }
+
+    #[test]
+    fn gram_route_angles_match_a_known_answer_on_a_table_large_enough_for_lanczos() {
+        // Known answer by construction (definition of principal angles, Björck & Golub
+        // 1973): U_A = [u_i], U_B = [cos θ_i u_i + sin θ_i w_i] with u, w orthonormal,
+        // centred; both tables' leading k left singular subspaces are exactly these, so
+        // the principal angles are the θ_i. 600x300 with k = 12 takes the Lanczos path
+        // of the Gram route (p = 300 > 128, 10k < p). Tolerance 1e-8: the accuracy
+        // stated in `similarity`'s doc for an eigen-gap of this size.
+        let (n, d, k, tail) = (600, 300, 12, 40);
+        let mut rng = Rng::new(77);
+        let q = random_orthogonal(&mut rng, n);
+        let basis = centred_orthonormal(&q.slice(s![.., ..2 * k + tail]).to_owned());
+        let thetas: Vec<f64> = (0..k).map(|i| 0.02 + 0.1 * i as f64).collect();
+        let (u, w, t) = (
+            basis.slice(s![.., ..k]),
+            basis.slice(s![.., k..2 * k]),
+            basis.slice(s![.., 2 * k..]),
+        );
+        let mut ub = Array2::<f64>::zeros((n, k));
+        for (i, theta) in thetas.iter().enumerate() {
+            let col = &u.column(i) * theta.cos() + &w.column(i) * theta.sin();
+            ub.column_mut(i).assign(&col);
+        }
+        let make = |lead: ndarray::ArrayView2<f64>, rng: &mut Rng| {
+            let v = random_orthogonal(rng, d);
+            let mut table = Array2::<f64>::zeros((n, d));
+            for i in 0..k {
+                let s = 10.0 * 0.8f64.powi(i as i32);
+                let outer = lead
+                    .column(i)
+                    .insert_axis(ndarray::Axis(1))
+                    .dot(&v.column(i).insert_axis(ndarray::Axis(0)));
+                table.scaled_add(s, &outer);
+            }
+            for j in 0..tail {
+                let outer = t
+                    .column(j)
+                    .insert_axis(ndarray::Axis(1))
+                    .dot(&v.column(k + j).insert_axis(ndarray::Axis(0)));
+                table.scaled_add(1e-3, &outer);
+            }
+            table + 3.0 // a common offset, removed by the centring
+        };
+        let a = make(u, &mut rng);
+        let b = make(ub.view(), &mut rng);
+        let o = SimilarityOptions {
+            k: Some(k),
+            ..SimilarityOptions::default()
+        };
+        let sim = similarity(a.view(), b.view(), &o).unwrap();
+        assert_eq!(sim.k, k);
+        for (got, want) in sim.principal_angles.iter().zip(&thetas) {
+            assert!((got - want).abs() < 1e-8, "angle {got} vs {want}");
+        }
+        let mean_cos2 = thetas.iter().map(|t| t.cos().powi(2)).sum::<f64>() / k as f64;
+        assert!((sim.subspace_similarity - mean_cos2).abs() < 1e-8);
     }
 
     #[test]

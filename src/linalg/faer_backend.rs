@@ -5,7 +5,7 @@ use ndarray::{Array2, ArrayView2};
 
 use super::{LinalgError, SvdParts, faer_to_ndarray, standard};
 
-/// faer follows the global parallelism set in `super::set_threads`; nothing else to do.
+/// faer runs with `Par::Seq`, set once by the seam (`super::set_threads`); nothing to do.
 pub(super) fn set_threads(_n: usize) {}
 
 fn view<'a>(data: &'a [f64], a: ArrayView2<f64>) -> MatRef<'a, f64> {
@@ -46,6 +46,14 @@ pub(super) fn thin_svd(a: ArrayView2<f64>) -> Result<SvdParts, LinalgError> {
     let s = svd.S().column_vector();
     let values = (0..s.nrows()).map(|i| s[i]).collect();
     Ok((values, faer_to_ndarray(svd.U()), faer_to_ndarray(svd.V())))
+}
+
+/// Singular values only (non-increasing), by the exact SVD without vectors.
+pub(super) fn svd_values(a: ArrayView2<f64>) -> Result<Vec<f64>, LinalgError> {
+    let data = standard(a);
+    view(&data, a)
+        .singular_values()
+        .map_err(|_| LinalgError::NoConvergence)
 }
 
 /// An orthonormal basis of the column space of a full-column-rank `a` (thin Q of QR).

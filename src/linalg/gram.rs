@@ -7,7 +7,8 @@
 //! X̃ = X − 1·x̄ᵀ                                  (column means x̄, never stored as a copy;
 //!                                                 x̄ = 0 without centring)
 //! G = X̃ᵀX̃ (d×d) if n ≥ d,  else X̃X̃ᵀ (n×n)       (accumulated over blocks of 256 rows or
-//!                                                 columns, lower triangle only, then mirrored)
+//!                                                 columns, in fixed tiles of 128 columns of G,
+//!                                                 lower part only, then mirrored)
 //! λ = eigenvalues(G)                             (tridiagonalisation, no eigenvectors)
 //! σᵢ = sqrt(max(λᵢ, 0))
 //! top-k eigenvectors of G                        (Lanczos with full reorthogonalisation,
@@ -48,14 +49,16 @@
 //! workspace (about another p²) and one block of 256 rows; the table is only read.
 
 use faer::linalg::matmul::matmul;
-use faer::linalg::matmul::triangular::{self, BlockStructure};
-use faer::{Accum, Mat, MatMut, MatRef};
+use faer::{Accum, Mat, MatRef, Par};
 use ndarray::{Array1, Array2, ArrayView2, Axis, s};
 
 use super::{Decomposition, LinalgError, backend, check, default_threads, fix_signs};
 
 /// Rows (or columns) per block when accumulating the Gram matrix.
 const BLOCK: usize = 256;
+
+/// Columns of G per tile of [`centred_gram`] (fixed: the tiling depends on the shape only).
+const TILE: usize = 128;
 
 /// Residual tolerance of the Lanczos vectors, relative to the largest eigenvalue of G.
 const LANCZOS_TOLERANCE: f64 = 1e-11;
@@ -168,77 +171,72 @@ pub fn gram_spectrum(
 
 /// The Gram matrix of the centred table, p×p (row-major, symmetric), accumulated over
 /// blocks so that no centred copy of the table exists.
+///
+/// `G = Σ_s v_s v_sᵀ` over the samples s (tall: the centred rows, p = d; wide: the
+/// centred columns, p = n), in blocks of 256 samples in order. The columns of G are cut
+/// into fixed tiles of 128 ([`super::par_map`] runs them on the threads): tile `[j0, j1)`
+/// accumulates `G[j0.., j0..j1]` over every block itself, centring the entries it needs
+/// into its own buffer. The tiling depends on the shape only, so G is bit-identical for
+/// every thread count.
 fn centred_gram(a: ArrayView2<f64>, mean: &Array1<f64>, tall: bool) -> Array2<f64> {
     let (n, d) = a.dim();
     let p = n.min(d);
-    let par = faer::get_global_parallelism();
-    let mut g = Array2::<f64>::zeros((p, p));
-    {
-        let slice = g.as_slice_mut().expect("fresh array is contiguous");
-        // Symmetric, so the row-major buffer read as column-major is the same matrix.
-        let mut gm = MatMut::from_column_major_slice_mut(slice, p, p);
-        // Each block is stored so that it reads as a column-major matrix `w × b`:
-        // tall: a block of b rows, centred, is Bᵀ (d × b) and G += Bᵀ·(Bᵀ)ᵀ;
-        // wide: a block of b columns of the centred table, as Cᵀ (b × n), G += (Cᵀ)ᵀ·Cᵀ.
-        let (outer, width) = if tall { (n, d) } else { (d, n) };
-        let mut buf = vec![0.0; BLOCK.min(outer) * width];
-        for start in (0..outer).step_by(BLOCK) {
-            let b = BLOCK.min(outer - start);
+    let samples = if tall { n } else { d };
+    // Entry j of sample s of the centred table.
+    let entry = |s: usize, j: usize| {
+        if tall {
+            a[[s, j]] - mean[j]
+        } else {
+            a[[j, s]] - mean[s]
+        }
+    };
+    let tiles = p.div_ceil(TILE);
+    let parts = super::par_map(tiles, |t| {
+        let j0 = t * TILE;
+        let w = TILE.min(p - j0);
+        let h = p - j0;
+        let mut out = Mat::<f64>::zeros(h, w);
+        // Column-major h × b: column i is sample (start + i), entries j0..p.
+        let mut buf = vec![0.0; BLOCK.min(samples) * h];
+        for start in (0..samples).step_by(BLOCK) {
+            let b = BLOCK.min(samples - start);
             if tall {
-                for (i, row) in a
-                    .slice(s![start..start + b, ..])
-                    .rows()
-                    .into_iter()
-                    .enumerate()
-                {
-                    for (dst, (x, m)) in
-                        buf[i * d..(i + 1) * d].iter_mut().zip(row.iter().zip(mean))
+                for i in 0..b {
+                    let row = a.row(start + i);
+                    for (dst, (x, m)) in buf[i * h..(i + 1) * h]
+                        .iter_mut()
+                        .zip(row.slice(s![j0..]).iter().zip(mean.slice(s![j0..])))
                     {
                         *dst = x - m;
                     }
                 }
-                let bt = MatRef::from_column_major_slice(&buf[..b * d], d, b);
-                triangular::matmul(
-                    gm.as_mut(),
-                    BlockStructure::TriangularLower,
-                    Accum::Add,
-                    bt,
-                    BlockStructure::Rectangular,
-                    bt.transpose(),
-                    BlockStructure::Rectangular,
-                    1.0,
-                    par,
-                );
             } else {
-                let m = mean.slice(s![start..start + b]);
-                for (i, row) in a
-                    .slice(s![.., start..start + b])
-                    .rows()
-                    .into_iter()
-                    .enumerate()
-                {
-                    for (dst, (x, mu)) in buf[i * b..(i + 1) * b].iter_mut().zip(row.iter().zip(m))
-                    {
-                        *dst = x - mu;
+                for j in 0..h {
+                    for i in 0..b {
+                        buf[i * h + j] = entry(start + i, j0 + j);
                     }
                 }
-                let ct = MatRef::from_column_major_slice(&buf[..b * n], b, n);
-                triangular::matmul(
-                    gm.as_mut(),
-                    BlockStructure::TriangularLower,
-                    Accum::Add,
-                    ct.transpose(),
-                    BlockStructure::Rectangular,
-                    ct,
-                    BlockStructure::Rectangular,
-                    1.0,
-                    par,
-                );
             }
+            let bt = MatRef::from_column_major_slice(&buf[..b * h], h, b);
+            matmul(
+                out.as_mut(),
+                Accum::Add,
+                bt,
+                bt.subrows(0, w).transpose(),
+                1.0,
+                Par::Seq,
+            );
         }
-        for j in 0..p {
-            for i in 0..j {
-                gm[(i, j)] = gm[(j, i)];
+        out
+    });
+    let mut g = Array2::<f64>::zeros((p, p));
+    for (t, part) in parts.iter().enumerate() {
+        let j0 = t * TILE;
+        for jj in 0..part.ncols() {
+            for ii in jj..part.nrows() {
+                let (i, j) = (j0 + ii, j0 + jj);
+                g[[i, j]] = part[(ii, jj)];
+                g[[j, i]] = part[(ii, jj)];
             }
         }
     }
@@ -255,7 +253,7 @@ fn centred_times(
 ) -> Array2<f64> {
     let (n, d) = a.dim();
     let k = vectors.ncols();
-    let par = faer::get_global_parallelism();
+    let par = Par::Seq;
     let vec_data: Vec<f64> = vectors.t().iter().copied().collect();
     // Column-major (rows(vectors) × k).
     let vm = MatRef::from_column_major_slice(&vec_data, vectors.nrows(), k);
@@ -322,7 +320,7 @@ fn lanczos(
     eigenvalues: &[f64],
 ) -> Option<Array2<f64>> {
     let p = g.nrows();
-    let par = faer::get_global_parallelism();
+    let par = Par::Seq;
     let data = g.as_slice()?;
     // Symmetric: the row-major buffer read column-major is the same matrix.
     let gm = MatRef::from_column_major_slice(data, p, p);
@@ -459,6 +457,42 @@ mod tests {
     fn exact(a: &Array2<f64>) -> Decomposition {
         let mean = a.mean_axis(Axis(0)).unwrap();
         super::super::thin_svd((a - &mean).view()).unwrap()
+    }
+
+    #[test]
+    fn tiled_gram_is_bit_identical_for_every_thread_count_and_equals_the_plain_product() {
+        // Several tiles of 128 columns and blocks of 256 samples, tall and wide. The
+        // reference is the plain product X̃ᵀX̃ of an explicitly centred copy (ndarray's
+        // `dot`), equal to rounding; across thread counts the bits must be equal.
+        let tall = Array2::from_shape_fn((600, 300), |(i, j)| {
+            ((i * 31 + j * 17) % 97) as f64 / 97.0 + (i as f64 * 0.01 * (j % 7) as f64).cos()
+        });
+        for (a, is_tall) in [(tall.clone(), true), (tall.t().to_owned(), false)] {
+            let mean = a.mean_axis(Axis(0)).unwrap();
+            let runs: Vec<Array2<f64>> = [1, 2, 3]
+                .iter()
+                .map(|&n| {
+                    super::super::set_threads(n);
+                    centred_gram(a.view(), &mean, is_tall)
+                })
+                .collect();
+            super::super::set_threads(1);
+            assert!(runs.iter().all(|g| *g == runs[0]), "tall {is_tall}");
+            let c = &a - &mean;
+            let plain = if is_tall {
+                c.t().dot(&c)
+            } else {
+                c.dot(&c.t())
+            };
+            let scale = plain.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            let worst = (&plain - &runs[0])
+                .iter()
+                .fold(0.0f64, |m, v| m.max(v.abs()));
+            assert!(worst <= 1e-12 * scale, "tall {is_tall}: {worst} vs {scale}");
+            let m = if is_tall { c.view() } else { c.t() };
+            let cross = super::super::cross_product(m, m);
+            assert!((&cross - &plain).iter().all(|v| v.abs() <= 1e-12 * scale));
+        }
     }
 
     #[test]

@@ -46,6 +46,12 @@ pub(super) fn thin_svd(a: ArrayView2<f64>) -> Result<SvdParts, LinalgError> {
     Ok((sv.to_vec(), u, vt.t().to_owned()))
 }
 
+/// Singular values only (non-increasing), by `gesdd` without vectors.
+pub(super) fn svd_values(a: ArrayView2<f64>) -> Result<Vec<f64>, LinalgError> {
+    let (_, sv, _) = a.svddc(JobSvd::None).map_err(err)?;
+    Ok(sv.to_vec())
+}
+
 /// An orthonormal basis of the column space of a full-column-rank `a` (thin Q of QR).
 pub(super) fn orthonormal_columns(a: ArrayView2<f64>) -> Result<Array2<f64>, LinalgError> {
     let (q, _r) = a.qr().map_err(err)?;

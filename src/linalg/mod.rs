@@ -43,11 +43,19 @@
 //! off quickly. [`thin_svd`] is the plain exact path, kept for tests and callers that need
 //! every singular vector.
 //!
-//! # Threads
-//! One thread by default (the machine is shared and multi-threaded BLAS spin-waits badly
-//! there); [`set_threads`] changes it for faer and, with the `lapack` feature, OpenBLAS.
+//! # Threads and determinism
+//! Every result is bit-identical for every thread count. The backends always run
+//! sequentially (faer with `Par::Seq`, OpenBLAS with one thread): their parallel
+//! kernels split sums differently for different thread counts. The parallelism is our
+//! own and coarse: [`par_map`] runs independent tasks (tiles of a product, the two
+//! tables of a comparison) on up to [`threads`] scoped threads, and each task is a
+//! sequential computation whose split into tiles is fixed by the shapes alone, so the
+//! order of every floating-point sum does not depend on which thread ran it or how
+//! many there were. [`set_threads`] sets the count (1 until it is called).
 
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::cell::Cell;
+use std::sync::Mutex;
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 
 use faer::linalg::matmul::matmul;
 use faer::{Accum, Mat, MatRef, Par};
@@ -104,23 +112,118 @@ pub struct Decomposition {
 }
 
 static THREADS_SET: AtomicBool = AtomicBool::new(false);
+static THREADS: AtomicUsize = AtomicUsize::new(1);
 
-/// Sets the number of threads the decompositions may use (1 = sequential, the default).
-///
-/// Applies to faer's global parallelism and, with the `lapack` feature, to OpenBLAS.
-/// `0` is treated as 1.
-pub fn set_threads(n: usize) {
-    THREADS_SET.store(true, Ordering::Relaxed);
-    let n = n.max(1);
-    faer::set_global_parallelism(if n == 1 { Par::Seq } else { Par::rayon(n) });
-    backend::set_threads(n);
+thread_local! {
+    /// Set inside a [`par_map`] worker, so nested calls run sequentially in it.
+    static IN_WORKER: Cell<bool> = const { Cell::new(false) };
 }
 
+/// Sets the number of threads [`par_map`] may use (1 = sequential, the default); `0`
+/// is treated as 1. Results do not depend on it (module doc, "Threads and
+/// determinism"); the backends themselves always run on one thread.
+pub fn set_threads(n: usize) {
+    THREADS.store(n.max(1), Ordering::Relaxed);
+    default_threads();
+}
+
+/// The thread count set by [`set_threads`] (1 until then).
+pub fn threads() -> usize {
+    THREADS.load(Ordering::Relaxed).max(1)
+}
+
+/// The number of cores this process may use (1 when it cannot be told).
+pub fn available_threads() -> usize {
+    std::thread::available_parallelism().map_or(1, |n| n.get())
+}
+
+/// The backends run sequentially, always (see the module doc).
 fn default_threads() {
     if !THREADS_SET.swap(true, Ordering::Relaxed) {
         faer::set_global_parallelism(Par::Seq);
         backend::set_threads(1);
     }
+}
+
+/// `f(0), …, f(count − 1)` in index order, computed on up to [`threads`] scoped
+/// threads (each takes the next unclaimed index). Each `f(i)` runs on one thread with
+/// sequential backends, so the results are those of a sequential loop, bit for bit.
+/// Called inside a worker, it runs sequentially there.
+pub fn par_map<T: Send>(count: usize, f: impl Fn(usize) -> T + Sync) -> Vec<T> {
+    default_threads();
+    let workers = if IN_WORKER.with(Cell::get) {
+        1
+    } else {
+        threads().min(count)
+    };
+    if workers <= 1 {
+        return (0..count).map(f).collect();
+    }
+    let next = AtomicUsize::new(0);
+    let slots: Vec<Mutex<Option<T>>> = (0..count).map(|_| Mutex::new(None)).collect();
+    std::thread::scope(|scope| {
+        for _ in 0..workers {
+            scope.spawn(|| {
+                IN_WORKER.with(|w| w.set(true));
+                loop {
+                    let i = next.fetch_add(1, Ordering::Relaxed);
+                    if i >= count {
+                        break;
+                    }
+                    let value = f(i);
+                    if let Ok(mut slot) = slots[i].lock() {
+                        *slot = Some(value);
+                    }
+                }
+            });
+        }
+    });
+    slots
+        .into_iter()
+        .enumerate()
+        .map(|(i, slot)| match slot.into_inner().ok().flatten() {
+            Some(v) => v,
+            // Only reachable if a worker panicked, which `scope` re-raises first.
+            None => f(i),
+        })
+        .collect()
+}
+
+/// Columns per tile of the parallel products: fixed, so the tiling (and every sum's
+/// order) depends on the shapes only.
+const TILE: usize = 128;
+
+/// `xᵀ·y` for row-major `x` (r×p) and `y` (r×q), p×q, over fixed tiles of 128 columns
+/// of `y` run by [`par_map`]: bit-identical for every thread count.
+pub fn cross_product(x: ArrayView2<f64>, y: ArrayView2<f64>) -> Array2<f64> {
+    default_threads();
+    let (xs, ys) = (standard(x), standard(y));
+    let (r, p, q) = (x.nrows(), x.ncols(), y.ncols());
+    let xm = MatRef::from_row_major_slice(&xs, r, p);
+    let ym = MatRef::from_row_major_slice(&ys, r, q);
+    let tiles = q.div_ceil(TILE);
+    let parts = par_map(tiles, |t| {
+        let (j0, w) = (t * TILE, TILE.min(q - t * TILE));
+        let mut out = Mat::<f64>::zeros(p, w);
+        matmul(
+            out.as_mut(),
+            Accum::Replace,
+            xm.transpose(),
+            ym.subcols(j0, w),
+            1.0,
+            Par::Seq,
+        );
+        out
+    });
+    let mut out = Array2::<f64>::zeros((p, q));
+    for (t, part) in parts.iter().enumerate() {
+        for i in 0..p {
+            for j in 0..part.ncols() {
+                out[[i, t * TILE + j]] = part[(i, j)];
+            }
+        }
+    }
+    out
 }
 
 fn check(a: ArrayView2<f64>) -> Result<(), LinalgError> {
@@ -158,7 +261,7 @@ fn tr_times(lhs: ArrayView2<f64>, rhs: ArrayView2<f64>) -> Array2<f64> {
         lm.transpose(),
         rm,
         1.0,
-        faer::get_global_parallelism(),
+        Par::Seq,
     );
     faer_to_ndarray(out.as_ref())
 }
@@ -169,14 +272,7 @@ fn times(lhs: ArrayView2<f64>, rhs: ArrayView2<f64>) -> Array2<f64> {
     let lm = MatRef::from_row_major_slice(&l, lhs.nrows(), lhs.ncols());
     let rm = MatRef::from_row_major_slice(&r, rhs.nrows(), rhs.ncols());
     let mut out = Mat::<f64>::zeros(lhs.nrows(), rhs.ncols());
-    matmul(
-        out.as_mut(),
-        Accum::Replace,
-        lm,
-        rm,
-        1.0,
-        faer::get_global_parallelism(),
-    );
+    matmul(out.as_mut(), Accum::Replace, lm, rm, 1.0, Par::Seq);
     faer_to_ndarray(out.as_ref())
 }
 
@@ -308,6 +404,16 @@ pub fn leading_components(a: ArrayView2<f64>, k: usize) -> Result<Decomposition,
     }
     fix_signs(&mut dec.left, &mut dec.right);
     Ok(dec)
+}
+
+/// All singular values of `a` by the exact SVD without vectors (absolute error of
+/// order `p·ε·σ₁`, as numpy's `gesdd`); cheaper than [`thin_svd`] by the vectors.
+pub fn exact_singular_values(a: ArrayView2<f64>) -> Result<Vec<f64>, LinalgError> {
+    check(a)?;
+    default_threads();
+    let mut values = backend::svd_values(a)?;
+    values.sort_by(|x, y| y.total_cmp(x));
+    Ok(values)
 }
 
 /// The exact thin SVD (all singular vectors), the slow path: `gesdd` with the `lapack`

@@ -182,3 +182,13 @@ pub struct CompareReport {
     /// Non-fatal problems met while opening or comparing.
     pub warnings: Vec<String>,
 }
+
+impl CompareReport {
+    /// True when a finding of any table is at or above `level` (`--fail-on`).
+    pub fn reaches(&self, level: crate::model::Severity) -> bool {
+        self.tables
+            .iter()
+            .flat_map(|t| &t.findings)
+            .any(|f| f.finding.severity >= level)
+    }
+}
