@@ -508,3 +508,71 @@ fn argument_errors_are_one_line_with_exit_2() {
         assert!(run.stderr.starts_with("posaudit: "), "{}", run.stderr);
     }
 }
+
+/// The demo checkpoint (invented data, examples/demo) at `name`.
+fn demo(name: &str) -> String {
+    std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("examples/demo/checkpoints")
+        .join(name)
+        .to_string_lossy()
+        .into_owned()
+}
+
+#[test]
+fn forcing_a_table_leaves_the_verdicts_on_the_others_unchanged() {
+    // A property of the audit, not a number: `--table` adds the tensors it names and
+    // changes nothing else. The forced ones are a token embedding (which the position-id
+    // buffer must not be matched to) and a 1-D norm weight (which must not become a
+    // rotary layer to compare with the real rotary buffer).
+    let path = demo("showcase");
+    let plain = audit_json(&path);
+    let run = posaudit(&[
+        "audit",
+        &path,
+        "--json",
+        "--table",
+        "tern.embeddings.word_embeddings.weight",
+        "--table",
+        "tern.layers.0.attn_norm.weight",
+    ]);
+    assert_eq!(run.code, 0, "{}", run.stderr);
+    let forced: Value = serde_json::from_str(&run.stdout).unwrap();
+    let tables = forced["tables"].as_array().unwrap();
+    assert_eq!(tables.len(), plain["tables"].as_array().unwrap().len() + 2);
+    for t in plain["tables"].as_array().unwrap() {
+        let same = tables
+            .iter()
+            .find(|x| x["name"] == t["name"])
+            .unwrap_or_else(|| panic!("{} still audited", t["name"]));
+        assert_eq!(same["verdict"], t["verdict"], "{}", t["name"]);
+        assert_eq!(same["findings"], t["findings"], "{}", t["name"]);
+        assert_eq!(same["layers"], t["layers"], "{}", t["name"]);
+    }
+}
+
+#[test]
+fn every_layer_with_the_same_rotary_values_carries_the_same_findings() {
+    // The demo's two rotary layers hold one bf16-rounded buffer (invented data): the
+    // `low-precision` finding belongs to each layer's entry, so a pipeline that reads
+    // only layer 1 sees it too.
+    let doc = audit_json(&demo("rotary-extended-bf16"));
+    let t = doc["tables"].as_array().unwrap();
+    let (l0, l1) = (&t[0], &t[1]);
+    assert_eq!(l1["same_as"], l0["name"]);
+    assert!(
+        codes(l0).contains(&"low-precision".to_string()),
+        "{:?}",
+        codes(l0)
+    );
+    let layer_codes: Vec<String> = codes(l0)
+        .into_iter()
+        .filter(|c| !c.starts_with("rotary-layers"))
+        .collect();
+    assert_eq!(codes(l1), layer_codes);
+    assert!(
+        l1["findings"][0]["evidence"]
+            .as_str()
+            .unwrap()
+            .contains("the same values as `dunlin.layers.0.self_attn.rotary_emb.inv_freq`")
+    );
+}

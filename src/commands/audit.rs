@@ -60,6 +60,19 @@ pub fn audit_opened(
 ) -> Result<AuditReport> {
     detect::check_forced(ckpt, forced)?;
     let detection = detect::detect(ckpt, forced)?;
+    // Tensors that are tables only because `--table` named them: they are audited, but
+    // never change the verdicts on the others (a position-id buffer is not matched to a
+    // forced token embedding, a forced 1-D weight is not a rotary layer).
+    let forced_only: std::collections::HashSet<String> = if forced.is_empty() {
+        Default::default()
+    } else {
+        let natural = detect::detect(ckpt, &[])?;
+        forced
+            .iter()
+            .filter(|f| !natural.tables.iter().any(|d| &d.name == *f))
+            .cloned()
+            .collect()
+    };
     let config = ckpt.config.as_ref();
     let mut tables = Vec::with_capacity(detection.tables.len());
     let mut warnings = ckpt.warnings.clone();
@@ -70,6 +83,7 @@ pub fn audit_opened(
             .tables
             .iter()
             .filter(|d| matches!(d.kind, Kind::LearnedAbsolute | Kind::FixedSinusoidal))
+            .filter(|d| !forced_only.contains(&d.name))
             .max_by_key(|d| common_prefix_parts(ids, &d.name))
             .filter(|d| common_prefix_parts(ids, &d.name) > 0)
             .and_then(|d| ckpt.tensor(&d.name)?.as_table_dims().map(|x| x.0))
@@ -95,18 +109,34 @@ pub fn audit_opened(
             Kind::RotaryFrequencies => {
                 let values = ckpt.read_f64(t)?;
                 let flat: ndarray::Array1<f64> = values.iter().copied().collect();
-                rotary_vectors.push((d.name.clone(), flat.clone()));
+                if !forced_only.contains(&d.name) {
+                    rotary_vectors.push((d.name.clone(), flat.clone()));
+                }
                 match &first_rotary {
                     Some((idx, first)) if *first == flat => {
                         let first_audit: &TableAudit = &tables[*idx];
                         audit.verdict = first_audit.verdict.clone();
                         audit.rotary = first_audit.rotary.clone();
                         audit.dim = first_audit.dim;
+                        // The same values carry the same findings: a pipeline that reads
+                        // one layer's entry sees them there, not only on the first layer.
+                        audit.findings = first_audit
+                            .findings
+                            .iter()
+                            .cloned()
+                            .map(|mut f| {
+                                f.evidence = format!(
+                                    "{} (the same values as `{}`, whose analysis this is)",
+                                    f.evidence, first_audit.name
+                                );
+                                f
+                            })
+                            .collect();
                         audit.same_as = Some(first_audit.name.clone());
                     }
                     _ => {
                         kinds::rotary(&mut audit, flat.view(), config);
-                        if first_rotary.is_none() {
+                        if first_rotary.is_none() && !forced_only.contains(&d.name) {
                             first_rotary = Some((tables.len(), flat));
                         }
                     }

@@ -28,6 +28,18 @@ use crate::detect::{Detected, IndexBuffer, Kind, Skipped};
 /// Schema tag of the audit document.
 pub const AUDIT_SCHEMA: &str = "posaudit/audit/v1";
 
+/// The numbers of a table's trained rows alone: the rows from the first indexed position
+/// up to the untrained tail.
+#[derive(Debug, Clone, Serialize)]
+pub struct TrainedRowsProfile {
+    /// The half-open table rows measured.
+    pub rows: [usize; 2],
+    /// Spectrum of those rows, mean-centred.
+    pub spectrum: Option<Spectrum>,
+    /// Mean cosine against distance over those rows.
+    pub locality: crate::analyze::neighbours::LocalityProfile,
+}
+
 /// The shape of a 1-D table along position: norms, neighbourhood, waves, periodicity,
 /// hygiene.
 #[derive(Debug, Clone, Serialize)]
@@ -98,6 +110,9 @@ pub struct TableAudit {
     pub same_as: Option<String>,
     /// The optimizer's second moment of this table, when the checkpoint holds it.
     pub optimizer: Option<crate::analyze::moments::MomentEvidence>,
+    /// Spectrum and locality of the trained rows alone, when the table has an untrained
+    /// tail (whole-table numbers mix trained rows with noise).
+    pub trained_rows_profile: Option<TrainedRowsProfile>,
 }
 
 impl TableAudit {
@@ -125,6 +140,7 @@ impl TableAudit {
             layers: None,
             same_as: None,
             optimizer: None,
+            trained_rows_profile: None,
         }
     }
 

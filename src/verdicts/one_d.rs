@@ -14,7 +14,7 @@ use crate::analyze::{hygiene, neighbours, norms, periodicity, sinusoid, spectrum
 use crate::checkpoint::Dtype;
 use crate::config::ConfigHints;
 use crate::detect::Kind;
-use crate::model::audit::{Profile, TableAudit};
+use crate::model::audit::{Profile, TableAudit, TrainedRowsProfile};
 use crate::model::{Finding, FindingCode, Severity};
 use crate::text::rows as range_text;
 
@@ -497,6 +497,19 @@ fn learned(
             fmt_opt(median_cos)
         ),
     };
+    // With an untrained tail, the whole-table spectrum and locality mix trained rows with
+    // noise: the trained rows' own numbers are given beside them.
+    if let Some(f) = report.first {
+        let start = reserved.min(f);
+        if f >= start + 8 {
+            let rows = table.slice(ndarray::s![start..f, ..]);
+            audit.trained_rows_profile = Some(TrainedRowsProfile {
+                rows: [to_table([start, start + 1])[0], to_table([f, f + 1])[0]],
+                spectrum: spectrum::spectrum(rows, COMPONENTS).ok(),
+                locality: neighbours::locality_profile(rows, LOCALITY_DISTANCE.min(f - start - 1)),
+            });
+        }
+    }
     audit.untrained = Some(report);
 }
 

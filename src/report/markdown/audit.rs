@@ -161,7 +161,16 @@ fn section(md: &mut String, t: &TableAudit, i: usize, figs: &[Figure]) {
     );
     let _ = writeln!(md, "**Verdict:** {}\n", escape(&t.verdict));
     if let Some(other) = &t.same_as {
-        let _ = writeln!(md, "Identical to `{other}`; see its section.\n");
+        let same = match t.findings.len() {
+            0 => String::new(),
+            1 => ", so the same finding".to_string(),
+            n => format!(", so the same {n} findings"),
+        };
+        let _ = writeln!(
+            md,
+            "Identical to `{}` (the same values{same}); see its section.\n",
+            escape(other)
+        );
         return;
     }
     if !t.findings.is_empty() {
@@ -204,6 +213,33 @@ fn numbers(t: &TableAudit) -> Vec<String> {
             "Spectrum of the mean-centred table: effective rank {:.1} of at most {} (Roy & Vetterli 2007); energy in {energy}.",
             sp.effective_rank,
             sp.singular_values.len()
+        ));
+    }
+    if let Some(tp) = &t.trained_rows_profile {
+        let mut parts = Vec::new();
+        if let Some(sp) = &tp.spectrum {
+            parts.push(format!(
+                "effective rank {:.1}, energy in top 1: {:.1}%",
+                sp.effective_rank,
+                100.0 * sp.energy_top_k.first().map_or(f64::NAN, |e| e.fraction)
+            ));
+        }
+        let loc: Vec<String> = tp
+            .locality
+            .distances
+            .iter()
+            .zip(&tp.locality.mean_cosine)
+            .filter(|(d, _)| matches!(**d, 1 | 10 | 100))
+            .map(|(d, c)| format!("{d}: {}", f3(*c)))
+            .collect();
+        if !loc.is_empty() {
+            parts.push(format!("mean cosine at distance {}", loc.join(", ")));
+        }
+        out.push(format!(
+            "Trained rows {}..{} alone (the numbers above include the untrained rows' noise): {}.",
+            tp.rows[0],
+            tp.rows[1],
+            parts.join("; ")
         ));
     }
     if let Some(p) = &t.profile {
