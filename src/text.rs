@@ -67,6 +67,33 @@ pub fn ranges(r: &[[usize; 2]], max: usize) -> String {
     parts.join(", ")
 }
 
+/// Up to `max` row ranges as `rows 3..9, 12, 15..18 and N more` (a one-row range as
+/// its row); `no rows` when empty.
+pub fn row_list(r: &[[usize; 2]], max: usize) -> String {
+    match r {
+        [] => "no rows".into(),
+        [one] => rows(*one),
+        _ => {
+            let mut parts: Vec<String> = r
+                .iter()
+                .take(max)
+                .map(|x| {
+                    if x[1] == x[0] + 1 {
+                        x[0].to_string()
+                    } else {
+                        range(*x)
+                    }
+                })
+                .collect();
+            if r.len() > max {
+                let last = parts.pop().unwrap_or_default();
+                parts.push(format!("{last} and {} more ranges", r.len() - max));
+            }
+            format!("rows {}", parts.join(", "))
+        }
+    }
+}
+
 /// A Markdown table cell or list item: pipes escaped, one line.
 pub fn escape(s: &str) -> String {
     s.replace('|', "\\|").replace('\n', " ")
@@ -182,6 +209,12 @@ mod tests {
             ranges(&[[0, 2], [5, 9], [11, 12]], 2),
             "0..2, 5..9, and 1 more"
         );
+        assert_eq!(
+            row_list(&[[0, 2], [5, 6], [11, 14]], 2),
+            "rows 0..2, 5 and 1 more ranges"
+        );
+        assert_eq!(row_list(&[[5, 6]], 2), "row 5");
+        assert_eq!(row_list(&[], 2), "no rows");
         assert_eq!(count(1, "tensor"), "1 tensor");
         assert_eq!(count(3, "tensor"), "3 tensors");
         // The shortened name the README shows.

@@ -576,3 +576,50 @@ fn every_layer_with_the_same_rotary_values_carries_the_same_findings() {
             .contains("the same values as `dunlin.layers.0.self_attn.rotary_emb.inv_freq`")
     );
 }
+
+/// A fragmented fade (the demo's invented run-a, step 2000: rows 516..686 fade into the
+/// untrained tail in pieces) is one partially-trained finding whose `ranges` hold every
+/// fading row and every short untrained run told in it, none of the trained rows between
+/// them, and whose span is the one the verdict line names.
+#[test]
+fn a_fragmented_fade_lists_all_its_rows_and_the_verdict_names_the_same_span() {
+    let doc = audit_json(&demo("run-a/step-2000"));
+    let t = &doc["tables"][0];
+    let f = t["findings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|f| f["code"] == "partially-trained")
+        .expect("a partially-trained finding");
+    let ranges = common::pairs(&f["ranges"]);
+    assert!(ranges.len() > 1, "the fade is in pieces: {ranges:?}");
+    for w in ranges.windows(2) {
+        assert!(
+            w[0][1] < w[1][0],
+            "ranges sorted, disjoint, not touching: {ranges:?}"
+        );
+    }
+    assert_eq!(f["positions"], serde_json::json!(ranges[0]));
+    let covered = |r: [usize; 2]| ranges.iter().any(|x| x[0] <= r[0] && r[1] <= x[1]);
+    let u = &t["untrained"];
+    let fading = common::pairs(&u["fading"]);
+    assert!(
+        fading.iter().all(|r| covered(*r)),
+        "{fading:?} in {ranges:?}"
+    );
+    // The untrained runs inside the span (not the tail) are in the finding too.
+    let span = [ranges[0][0], ranges[ranges.len() - 1][1]];
+    let inside: Vec<[usize; 2]> = common::pairs(&u["ranges"])
+        .into_iter()
+        .filter(|r| span[0] <= r[0] && r[1] <= span[1])
+        .collect();
+    assert!(!inside.is_empty() && inside.iter().all(|r| covered(*r)));
+    let told: usize = fading.iter().chain(&inside).map(|r| r[1] - r[0]).sum();
+    let listed: usize = ranges.iter().map(|r| r[1] - r[0]).sum();
+    assert_eq!(listed, told, "no trained row between the pieces is listed");
+    let verdict = t["verdict"].as_str().unwrap();
+    assert!(
+        verdict.contains(&format!("partially trained rows {}..{}", span[0], span[1])),
+        "{verdict} vs span {span:?}"
+    );
+}

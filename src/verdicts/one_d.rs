@@ -186,7 +186,7 @@ pub fn audit_table(
         audit.findings.push(Finding::info(FindingCode::ZeroRows, format!(
                 "{} all-zero row(s): {}{}.",
                 prof.hygiene.zero_row_count,
-                zero.iter().take(4).map(|r| range_text(*r)).collect::<Vec<_>>().join(", "),
+                crate::text::row_list(zero, 6),
                 if at_pad { " (the padding row of pad_token_id)" } else { "" }
             ))
 .ranges(zero.iter().copied())
@@ -399,6 +399,8 @@ fn learned(
 .evidence(own(r_analysed, !in_reserved))
 .limits(limits));
     }
+    // The span the partially-trained finding names, for the verdict line too.
+    let mut partial_span: Option<[usize; 2]> = None;
     if !report.fading.is_empty() {
         // One finding for the whole fading stretch, however fragmented the rows are.
         let pieces: Vec<[usize; 2]> = report.fading.iter().map(|r| to_table(*r)).collect();
@@ -408,23 +410,32 @@ fn learned(
             .map(|x| x[1])
             .fold(pieces[pieces.len() - 1][1], usize::max);
         let r = [pieces[0][0], end];
+        partial_span = Some(r);
         let rows: usize = pieces.iter().map(|p| p[1] - p[0]).sum();
+        // Every row the finding is about: the fading rows and the short untrained runs
+        // told in it (the trained rows between them are not part of it).
+        let covered = ranges_from_rows(
+            pieces
+                .iter()
+                .chain(within_fade.iter())
+                .flat_map(|x| x[0]..x[1]),
+        );
         audit.findings.push(Finding::info(FindingCode::PartiallyTrained, format!(
                 "{rows} rows between {} and {} move gradually from trained structure towards noise ({}): trained on few sequences that long.{}",
                 r[0],
                 r[1],
-                pieces.iter().take(4).map(|p| range_text(*p)).collect::<Vec<_>>().join(", "),
+                crate::text::row_list(&pieces, 6),
                 if within_fade.is_empty() {
                     String::new()
                 } else {
                     let n: usize = within_fade.iter().map(|x| x[1] - x[0]).sum();
                     format!(
                         " Within it, {n} row(s) look untrained on their own ({}), as expected at the noisy edge of a fade.",
-                        within_fade.iter().take(6).map(|x| range_text(*x)).collect::<Vec<_>>().join(", ")
+                        crate::text::row_list(&within_fade, 8)
                     )
                 }
             ))
-.rows(r)
+.ranges(covered)
 .evidence(format!("across rows {}..{}: {}", r[0], r[1], own(to_analysed(r), false).trim_start_matches("these rows: ")))
 .limits("A fading range is the expected footprint of a length distribution with a thin tail; it is not a defect by itself."));
     }
@@ -473,7 +484,7 @@ fn learned(
             } else {
                 format!("trained rows 0..{start}, untrained tail from row {start} ({tail} rows)")
             };
-            if let Some(f) = fading_span {
+            if let Some(f) = partial_span {
                 text.push_str(&format!("; partially trained rows {}..{}", f[0], f[1]));
             }
             if others > 0 {

@@ -64,7 +64,13 @@ fn shaded_ranges(t: &TableAudit) -> Vec<XRange> {
             FindingCode::PartiallyTrained => "fading",
             _ => continue,
         };
-        for &r in &f.ranges {
+        // A fade is one stretch however fragmented (its trained rows in between are
+        // part of the picture); untrained runs are shaded one by one.
+        let spans: Vec<[usize; 2]> = match (f.code, f.ranges.first(), f.ranges.last()) {
+            (FindingCode::PartiallyTrained, Some(a), Some(b)) => vec![[a[0], b[1]]],
+            _ => f.ranges.clone(),
+        };
+        for r in spans {
             shaded.push(XRange {
                 start: r[0] as f64,
                 end: r[1] as f64,

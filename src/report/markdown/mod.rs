@@ -7,10 +7,10 @@ pub mod compare;
 use std::fmt::Write;
 
 use crate::model::{Finding, Severity};
-use crate::text::{escape, rows};
+use crate::text::{escape, row_list};
 
 /// One finding as a list item, with its evidence and limits as sub-items. A finding
-/// about several row ranges names the first and counts the others.
+/// about several row ranges names the first four and counts the others.
 pub(crate) fn finding(md: &mut String, f: &Finding) {
     let marker = match f.severity {
         Severity::Error => "**error**",
@@ -19,18 +19,7 @@ pub(crate) fn finding(md: &mut String, f: &Finding) {
     };
     let at = f
         .positions
-        .map(|r| {
-            let more = f.ranges.len().saturating_sub(1);
-            if more == 0 {
-                format!(" — {}", rows(r))
-            } else {
-                format!(
-                    " — {} and {more} more range{}",
-                    rows(r),
-                    if more == 1 { "" } else { "s" }
-                )
-            }
-        })
+        .map(|_| format!(" — {}", row_list(&f.ranges, 4)))
         .unwrap_or_default();
     let _ = writeln!(md, "- {marker} `{}`{at}: {}", f.code, escape(&f.message));
     if !f.evidence.is_empty() {
