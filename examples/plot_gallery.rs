@@ -265,6 +265,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             },
             width: 800,
             height: 600,
+            row_labels: Vec::new(),
         }),
     )?;
     let steps = 12;
@@ -297,6 +298,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             },
             width: 800,
             height: 400,
+            row_labels: Vec::new(),
         }),
     )?;
 

@@ -58,8 +58,11 @@ macro_rules! audit_examples {
 macro_rules! compare_examples {
     () => {
         "Examples:
+  posaudit compare run/
+      a run folder (run/step-1000, run/step-2000, ...): every checkpoint in
+      step order, how the tables moved, with a timeline per position
   posaudit compare run/step-1000 run/step-2000 run/step-4000 run/step-8000
-      how the tables moved along one run, with a timeline per position
+      the same checkpoints named one by one (compared in the order given)
   posaudit compare run-a/step-8000 run-b/step-8000 --out seeds-report
       two seeds: per-row change against rotation-invariant similarity
   posaudit compare old.safetensors new.bin --table model.embed_positions.weight --json
@@ -176,7 +179,8 @@ pub enum Command {
     /// Compare the position tables of two or more checkpoints
     ///
     /// Checkpoints are compared in the order given: steps of one run (oldest
-    /// first), or runs with other seeds or recipes; formats may differ. Tables
+    /// first), or runs with other seeds or recipes; formats may differ. One
+    /// run folder is its checkpoints in step order. Tables
     /// are matched by name, or else by kind and shape. For each consecutive
     /// pair (and first to last with three or more) it reports the change of
     /// every row, the rows that moved most, the rows that did not change
@@ -488,13 +492,23 @@ pub struct ScanArgs {
 /// Arguments of `compare`.
 #[derive(Debug, clap::Args)]
 pub struct CompareArgs {
-    /// Two or more checkpoints (files or folders), oldest first
+    /// Two or more checkpoints (files or folders), oldest first; or one run folder
     ///
     /// Each is compared with the next, and the first with the last when there
-    /// are three or more. Any mix of formats. Shell brace expansion lists a
-    /// run's steps in order: run-a/step-{1000,2000,4000}.
-    #[arg(value_name = "PATH", num_args = 2.., required = true, verbatim_doc_comment)]
+    /// are three or more. Any mix of formats. One folder that holds checkpoints
+    /// named with a step number (checkpoint-500/, step-2000/, global_step800/,
+    /// epoch=3-step=1200.ckpt, model_1000.pt) is a run: its checkpoints are
+    /// compared in step order (checkpoint-1000 after checkpoint-500), and the
+    /// report says what was found. Given one by one, the order is kept.
+    #[arg(value_name = "PATH", num_args = 1.., required = true, verbatim_doc_comment)]
     pub paths: Vec<PathBuf>,
+    /// The weight file to read in each checkpoint folder that holds several
+    ///
+    /// As for audit: a file name inside each folder, e.g. `--file
+    /// model_ema.safetensors`. Default: the file posaudit chooses (the summary
+    /// says which, and lists the others).
+    #[arg(long, value_name = "NAME", verbatim_doc_comment)]
+    pub file: Option<String>,
     /// Compare only this tensor (repeatable)
     ///
     /// Restricts the comparison to the named tensors, treated as position

@@ -127,6 +127,7 @@ fn dispatch(cli: Cli) -> Result<u8> {
             }
             let options = compare::CompareOptions {
                 paths: args.paths,
+                file: args.file,
                 tables: args.tables,
                 threads: args.threads,
             };

@@ -94,6 +94,45 @@ pub fn row_list(r: &[[usize; 2]], max: usize) -> String {
     }
 }
 
+/// Half-open ranges `r` (sorted, disjoint) in at most `max` groups: when there are more,
+/// the neighbouring groups with the smallest gap between them are merged first, and a
+/// merged group is written as its span with the rows it covers, e.g.
+/// `455..520 (13 of 65 rows, in 9 pieces)`. Scattered single rows thus read as one range
+/// instead of a list cut off by "and N more".
+pub fn grouped_ranges(r: &[[usize; 2]], max: usize) -> String {
+    if r.len() <= max.max(1) {
+        return ranges(r, max.max(1));
+    }
+    // (span, rows covered, pieces)
+    let mut groups: Vec<([usize; 2], usize, usize)> =
+        r.iter().map(|&[s, e]| ([s, e], e - s, 1)).collect();
+    while groups.len() > max.max(1) {
+        let at = (0..groups.len() - 1)
+            .min_by_key(|&i| (groups[i + 1].0[0].saturating_sub(groups[i].0[1]), i))
+            .unwrap_or(0);
+        let next = groups.remove(at + 1);
+        let g = &mut groups[at];
+        g.0[1] = next.0[1];
+        g.1 += next.1;
+        g.2 += next.2;
+    }
+    groups
+        .iter()
+        .map(|&(span, rows, pieces)| {
+            if pieces == 1 {
+                range(span)
+            } else {
+                format!(
+                    "{} ({rows} of {} rows, in {pieces} pieces)",
+                    range(span),
+                    span[1] - span[0]
+                )
+            }
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
 /// A Markdown table cell or list item: pipes escaped, one line.
 pub fn escape(s: &str) -> String {
     s.replace('|', "\\|").replace('\n', " ")
@@ -199,6 +238,17 @@ mod tests {
         assert_eq!(s, "a    bb  why\nxxx  y   long text\n");
         assert_eq!(human_bytes(1536), "1.5 KiB");
         assert_eq!(shape_str(&[512, 768]), "512x768");
+    }
+
+    #[test]
+    fn grouped_ranges_merge_fragments() {
+        let r = [[455, 456], [457, 458], [487, 488], [489, 490], [900, 910]];
+        assert_eq!(
+            grouped_ranges(&r, 2),
+            "455..490 (4 of 35 rows, in 4 pieces), 900..910"
+        );
+        assert_eq!(grouped_ranges(&r[..2], 6), "455..456, 457..458");
+        assert_eq!(grouped_ranges(&[], 6), "none");
     }
 
     #[test]

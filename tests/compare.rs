@@ -559,7 +559,7 @@ fn json_follows_the_contract_and_out_writes_linked_files_only() {
     assert!(
         run.stdout
             .lines()
-            .any(|l| l.starts_with(POS) && l.contains("0 → 1") && l.contains("24")),
+            .any(|l| l.starts_with(POS) && l.contains("ckpt0 → ckpt1") && l.contains("24")),
         "{}",
         run.stdout
     );

@@ -96,13 +96,7 @@ const REPORTS: &[DemoReport] = &[
     },
     DemoReport {
         name: "compare-run-a",
-        args: &[
-            "compare",
-            "examples/demo/checkpoints/run-a/step-1000",
-            "examples/demo/checkpoints/run-a/step-2000",
-            "examples/demo/checkpoints/run-a/step-4000",
-            "examples/demo/checkpoints/run-a/step-8000",
-        ],
+        args: &["compare", "examples/demo/checkpoints/run-a"],
     },
     DemoReport {
         name: "compare-run-a-run-b",

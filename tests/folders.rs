@@ -172,10 +172,28 @@ fn a_run_folder_shows_the_compare_command() {
     let run = posaudit(&["audit", run_dir.to_str().unwrap()]);
     assert_ne!(run.code, 2, "{}", run.stderr);
     let d = run_dir.display().to_string();
-    let want = format!(
-        "holds 4 checkpoints in sub-folders; compare them: `posaudit compare {d}/step-0000 {d}/step-0200 {d}/step-0600 {d}/step-0800`"
-    );
+    let want = format!("holds 4 checkpoints in sub-folders; compare them: `posaudit compare {d}`");
     assert!(run.stdout.contains(&want), "{}", run.stdout);
+    // The command shown works: the run folder's checkpoints in step order (the four
+    // step folders and the training file of step 800 beside them).
+    let shown = posaudit(&["compare", &d, "--json"]);
+    assert_eq!(shown.code, 0, "{}", shown.stderr);
+    let doc: serde_json::Value = serde_json::from_str(&shown.stdout).unwrap();
+    let steps: Vec<u64> = doc["checkpoints"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|c| c["step"].as_u64().unwrap())
+        .collect();
+    assert_eq!(steps, vec![0, 200, 600, 800, 800]);
+    assert_eq!(
+        doc["run"]["checkpoints"][4]["name"],
+        "training-step-0800.pt"
+    );
+    assert_eq!(
+        doc["tables"][0]["steps"][0]["label"],
+        "step-0000 → step-0200"
+    );
 
     // Without weights of its own: refused with the same command.
     let dir = tempfile::tempdir().unwrap();
@@ -190,9 +208,14 @@ fn a_run_folder_shows_the_compare_command() {
     }
     let d = dir.path().display().to_string();
     let run = posaudit(&["audit", &d]);
-    assert_input_error(
-        &run,
-        &d,
-        &format!("compare them: `posaudit compare {d}/step-0200 {d}/step-0600`"),
+    assert_input_error(&run, &d, &format!("compare them: `posaudit compare {d}`"));
+    let shown = posaudit(&["compare", &d]);
+    assert_eq!(shown.code, 0, "{}", shown.stderr);
+    assert!(
+        shown
+            .stdout
+            .contains("2 checkpoints found, ordered by step number: step-0200, step-0600"),
+        "{}",
+        shown.stdout
     );
 }

@@ -21,6 +21,7 @@ use std::rc::Rc;
 
 use ndarray::{Array2, s};
 
+use super::run::{find_run, labels as run_labels, step_number};
 use crate::analyze::stats::median;
 use crate::checkpoint::{Checkpoint, Dtype, TensorInfo};
 use crate::compare::{
@@ -39,8 +40,12 @@ use crate::verdicts::compare as verdicts;
 /// What `compare` needs.
 #[derive(Debug, Clone, Default)]
 pub struct CompareOptions {
-    /// The checkpoints, in order (at least two).
+    /// The checkpoints, in order (at least two), or one run folder: its checkpoints
+    /// (sub-folders and files with a step number in their names) are compared in step
+    /// order ([`super::run::find_run`]).
     pub paths: Vec<PathBuf>,
+    /// A weight file to read in each checkpoint folder that holds several (`--file`).
+    pub file: Option<String>,
     /// Restrict the comparison to these tensor names (treated as tables even if the
     /// detector would not); each must exist in at least one checkpoint.
     pub tables: Vec<String>,
@@ -86,7 +91,8 @@ fn mantissa_bits(d: &Dtype) -> u32 {
 
 /// Compares the checkpoints of `options` in order.
 pub fn run(options: &CompareOptions) -> Result<CompareReport> {
-    run_with(options, &open)
+    let file = options.file.clone();
+    run_with(options, &move |p| super::open(p, file.as_deref()))
 }
 
 /// [`run`] with checkpoints opened by `open` (called with each of the paths, possibly
@@ -104,7 +110,8 @@ pub fn run_progress(
     options: &CompareOptions,
     progress: &mut dyn FnMut(&str, usize, usize),
 ) -> Result<CompareReport> {
-    run_with_progress(options, &open, progress)
+    let file = options.file.clone();
+    run_with_progress(options, &move |p| super::open(p, file.as_deref()), progress)
 }
 
 /// [`run_with`] with a `progress` callback (see [`run_progress`]).
@@ -116,13 +123,32 @@ pub fn run_with_progress(
     if options.threads > 0 {
         crate::linalg::set_threads(options.threads);
     }
-    let (paths, forced) = (&options.paths[..], &options.tables[..]);
-    if paths.len() < 2 {
-        return Err(Error::Usage(format!(
-            "compare needs at least two checkpoints, got {}",
-            paths.len()
-        )));
-    }
+    let forced = &options.tables[..];
+    let (run_folder, paths) = match &options.paths[..] {
+        [one] => match find_run(one) {
+            Some(run) => {
+                let paths = run.paths();
+                (Some(run), paths)
+            }
+            None => {
+                return Err(Error::Usage(format!(
+                    "{}: compare needs two or more checkpoints, or one run folder holding them (sub-folders or files named with a step number, e.g. checkpoint-500/, step-2000/, global_step800/, epoch=3-step=1200.ckpt); this is neither",
+                    crate::checkpoint::shown(&one.display().to_string())
+                )));
+            }
+        },
+        [] => {
+            return Err(Error::Usage(
+                "compare needs at least two checkpoints, got 0".into(),
+            ));
+        }
+        many => (None, many.to_vec()),
+    };
+    let paths = &paths[..];
+    let labels = match &run_folder {
+        Some(run) => run.checkpoints.iter().map(|e| e.name.clone()).collect(),
+        None => run_labels(paths),
+    };
     // Open every checkpoint once first (headers only), so a bad path fails before any
     // table is read; each is closed again right away.
     let mut checkpoints = Vec::with_capacity(paths.len());
@@ -132,8 +158,14 @@ pub fn run_with_progress(
         for (f, seen) in forced.iter().zip(seen_forced.iter_mut()) {
             *seen |= ckpt.tensor(f).is_some();
         }
+        let name = labels[index].rsplit('/').next().unwrap_or_default();
         checkpoints.push(CheckpointEntry {
             index,
+            label: labels[index].clone(),
+            step: run_folder
+                .as_ref()
+                .and_then(|r| r.checkpoints[index].step)
+                .or_else(|| step_number(name)),
             summary: CheckpointSummary::of(&ckpt),
         });
     }
@@ -160,7 +192,11 @@ pub fn run_with_progress(
     for (index, path) in paths.iter().enumerate() {
         progress(&path.display().to_string(), index, n_ckpt);
         let ckpt = open(path)?;
-        warnings.extend(ckpt.warnings.iter().map(|w| format!("[{index}] {w}")));
+        warnings.extend(
+            ckpt.warnings
+                .iter()
+                .map(|w| format!("[{}] {w}", labels[index])),
+        );
         let present: Vec<String> = forced
             .iter()
             .filter(|f| ckpt.tensor(f).is_some())
@@ -200,7 +236,7 @@ pub fn run_with_progress(
                 info,
                 index,
                 how,
-                &step_options,
+                (&step_options, &labels),
                 &mut warnings,
             );
         }
@@ -235,7 +271,7 @@ pub fn run_with_progress(
                 info,
                 index,
                 MatchedBy::Name,
-                &step_options,
+                (&step_options, &labels),
                 &mut warnings,
             );
             tracked.push(t);
@@ -244,18 +280,15 @@ pub fn run_with_progress(
     }
     let tables = tracked
         .into_iter()
-        .map(|t| finish(t, n_ckpt, &step_options))
+        .map(|t| finish(t, n_ckpt, &step_options, &labels))
         .collect();
     Ok(CompareReport {
         schema: COMPARE_SCHEMA,
         checkpoints,
+        run: run_folder,
         tables,
         warnings,
     })
-}
-
-fn open(path: &Path) -> Result<Checkpoint> {
-    Ok(Checkpoint::open(path)?)
 }
 
 /// For each tracked table, the candidate it matches in this checkpoint: first by name,
@@ -314,7 +347,7 @@ fn visit(
     info: &TensorInfo,
     index: usize,
     how: MatchedBy,
-    options: &StepOptions,
+    (options, labels): (&StepOptions, &[String]),
     warnings: &mut Vec<String>,
 ) {
     t.entry.matches.push(Some(TableMatch {
@@ -330,7 +363,10 @@ fn visit(
     let table = match read_as_table(ckpt, info) {
         Ok(table) => table,
         Err(e) => {
-            warnings.push(format!("[{index}] `{}`: not compared: {e}", info.name));
+            warnings.push(format!(
+                "[{}] `{}`: not compared: {e}",
+                labels[index], info.name
+            ));
             t.entry.missing_from.push(index);
             return;
         }
@@ -342,7 +378,7 @@ fn visit(
     };
     t.present += 1;
     if let Some(prev) = t.prev.take() {
-        let (step, findings) = make_step(&prev, &cur, options);
+        let (step, findings) = make_step(&prev, &cur, options, labels);
         t.entry.findings.extend(findings);
         if let Some(tl) = &mut t.timeline {
             let pushed = match (&step.noise, step.per_row) {
@@ -355,10 +391,7 @@ fn visit(
                         &step.unchanged,
                     )
                     .map_err(|e| e.to_string()),
-                _ => Err(format!(
-                    "step {} → {} has no per-row change",
-                    step.from, step.to
-                )),
+                _ => Err(format!("step {} has no per-row change", step.label)),
             };
             if let Err(e) = pushed {
                 t.timeline_problem = Some(e);
@@ -374,11 +407,16 @@ fn visit(
     t.prev = Some(cur);
 }
 
-fn finish(mut t: Tracked, n_ckpt: usize, options: &StepOptions) -> TableComparison {
+fn finish(
+    mut t: Tracked,
+    n_ckpt: usize,
+    options: &StepOptions,
+    labels: &[String],
+) -> TableComparison {
     if t.present >= 3
         && let (Some(first), Some(last)) = (&t.first, &t.prev)
     {
-        let (step, findings) = make_step(first, last, options);
+        let (step, findings) = make_step(first, last, options, labels);
         t.entry.findings.extend(findings);
         t.entry.first_to_last = Some(step);
     }
@@ -402,6 +440,7 @@ fn finish(mut t: Tracked, n_ckpt: usize, options: &StepOptions) -> TableComparis
             &t.entry.name,
             &t.entry.missing_from,
             &held,
+            labels,
         ));
         if held.len() < 2 {
             t.entry
@@ -439,10 +478,11 @@ fn tolerance(a: &Dtype, b: &Dtype) -> Tolerance {
     }
 }
 
-fn empty_step(a: &Held, b: &Held, rows: usize) -> StepEntry {
+fn empty_step(a: &Held, b: &Held, rows: usize, labels: &[String]) -> StepEntry {
     StepEntry {
         from: a.index,
         to: b.index,
+        label: format!("{} → {}", labels[a.index], labels[b.index]),
         change: Vec::new(),
         unchanged: Vec::new(),
         subspace_similarity: None,
@@ -471,12 +511,18 @@ fn empty_step(a: &Held, b: &Held, rows: usize) -> StepEntry {
 }
 
 /// Compares two versions of a table; returns the step and its findings.
-fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<CompareFinding>) {
+fn make_step(
+    a: &Held,
+    b: &Held,
+    options: &StepOptions,
+    labels: &[String],
+) -> (StepEntry, Vec<CompareFinding>) {
     let (ta, tb) = (a.table.view(), b.table.view());
     let rows = ta.nrows().min(tb.nrows());
-    let mut step = empty_step(a, b, rows);
+    let mut step = empty_step(a, b, rows, labels);
     let mut findings = Vec::new();
-    let where_ = format!("checkpoint {} → {}", a.index, b.index);
+    // "step-1000 and step-2000": how messages say between which checkpoints.
+    let where_ = format!("{} and {}", labels[a.index], labels[b.index]);
     if ta.ncols() != tb.ncols() {
         step.note = Some(format!(
             "widths differ ({} vs {} columns): per-row change cannot be computed; similarity of the first {rows} rows only",
@@ -555,7 +601,7 @@ fn make_step(a: &Held, b: &Held, options: &StepOptions) -> (StepEntry, Vec<Compa
             if let CompareError::NonFinite { which, count } = e {
                 let idx = if which == "first" { a.index } else { b.index };
                 findings.push(verdicts::non_finite(
-                    idx,
+                    (idx, &labels[idx]),
                     count,
                     &where_,
                     &reason,

@@ -11,6 +11,7 @@
 pub mod audit;
 pub mod compare;
 pub mod extend;
+pub mod run;
 pub mod scan;
 
 use std::path::Path;
@@ -24,7 +25,7 @@ fn open(path: &Path, file: Option<&str>) -> Result<Checkpoint> {
 }
 
 /// File name endings of the weight files a checkpoint folder may hold.
-const WEIGHT_ENDINGS: [&str; 7] = [
+pub(crate) const WEIGHT_ENDINGS: [&str; 7] = [
     ".safetensors",
     ".bin",
     ".pt",
@@ -56,9 +57,14 @@ fn checkpoint_subfolders(dir: &Path) -> Vec<String> {
     out
 }
 
-/// The arguments of `posaudit compare` for the sub-folders `subs` of `dir`, in name order
-/// (at most 8 listed).
+/// The arguments of `posaudit compare` for the sub-folders `subs` of `dir`: the folder
+/// alone when it is a run folder (checkpoints named with step numbers, which compare
+/// orders itself, [`run::find_run`]), else the sub-folders in name order (at most 8
+/// listed).
 fn compare_command(dir: &Path, subs: &[String]) -> String {
+    if run::find_run(dir).is_some() {
+        return crate::checkpoint::shown(&dir.display().to_string());
+    }
     let mut s = subs
         .iter()
         .take(8)

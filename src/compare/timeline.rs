@@ -20,6 +20,7 @@
 //!   This is our choice, not a published rule; it detects rows that stopped while the
 //!   rest kept moving, not a whole table slowing down (the heat map shows that).
 
+use crate::analyze::ranges::ranges_from_mask;
 use serde::Serialize;
 
 use super::CompareError;
@@ -196,25 +197,10 @@ pub struct Timeline {
     heat_max: Vec<Vec<f64>>,
 }
 
+/// The runs of `true` in `flags` as half-open ranges (the shared helper of every
+/// report's row ranges, [`ranges_from_mask`]).
 fn ranges_where(flags: impl Iterator<Item = bool>) -> Vec<[usize; 2]> {
-    let mut out = Vec::new();
-    let mut start = None;
-    let mut n = 0;
-    for (i, f) in flags.enumerate() {
-        n = i + 1;
-        match (f, start) {
-            (true, None) => start = Some(i),
-            (false, Some(s)) => {
-                out.push([s, i]);
-                start = None;
-            }
-            _ => {}
-        }
-    }
-    if let Some(s) = start {
-        out.push([s, n]);
-    }
-    out
+    ranges_from_mask(&flags.collect::<Vec<bool>>())
 }
 
 impl Timeline {

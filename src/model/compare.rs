@@ -7,11 +7,12 @@
 //!
 //! ```text
 //! {"schema": "posaudit/compare/v1",
-//!  "checkpoints": [{"index", "path", "format", "files", "tensors", "bytes"}],
+//!  "checkpoints": [{"index", "label", "step", "path", "format", "files", "tensors", "bytes", ...}],
+//!  "run": {"path", "checkpoints": [{"name", "step", "folder"}], "skipped": [...]} | null,
 //!  "tables": [{"name", "kind", "matched_by": "name" | "kind and shape",
 //!              "matches": [{"checkpoint", "name", "matched_by", "shape", "dtype"} | null],
 //!              "missing_from": [...], "notes": [...],
-//!              "steps": [{"from", "to", "change", "unchanged", "subspace_similarity",
+//!              "steps": [{"from", "to", "label", "change", "unchanged", "subspace_similarity",
 //!                         "rows_compared", "per_row", "mean_change", ..., "similarity"}],
 //!              "first_to_last": {...same as a step...} | null,
 //!              "timeline": {...} | null, "timeline_unavailable": "..." | null,
@@ -19,6 +20,8 @@
 //!                            "limits", "step"}]}],
 //!  "warnings": ["..."]}
 //! ```
+
+use std::path::{Path, PathBuf};
 
 use serde::Serialize;
 
@@ -34,9 +37,63 @@ pub const COMPARE_SCHEMA: &str = "posaudit/compare/v1";
 pub struct CheckpointEntry {
     /// Position on the command line (0-based); steps refer to it.
     pub index: usize,
+    /// What the reports call it: its name (the last path component, with parents added
+    /// until the labels are unique), or the run folder's entry name.
+    pub label: String,
+    /// The training step its name gives (`checkpoint-500` → 500), when it has one.
+    pub step: Option<u64>,
     /// Path, format, files, tensors, bytes.
     #[serde(flatten)]
     pub summary: CheckpointSummary,
+}
+
+/// One entry of a run folder.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct RunEntry {
+    /// The entry's name inside the run folder.
+    pub name: String,
+    /// The step number its name gives (see `commands::run::step_number`).
+    pub step: Option<u64>,
+    /// True for a sub-folder (holding weight files), false for a checkpoint file.
+    pub folder: bool,
+}
+
+/// What `compare RUN_DIR` found in the run folder.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct RunFolder {
+    /// The run folder as given.
+    pub path: String,
+    /// The checkpoints compared, ordered by step number (ties by name).
+    pub checkpoints: Vec<RunEntry>,
+    /// Checkpoint-like entries left out because their names give no step number.
+    pub skipped: Vec<RunEntry>,
+}
+
+impl RunFolder {
+    /// The paths of the checkpoints, in order.
+    pub fn paths(&self) -> Vec<PathBuf> {
+        let dir = Path::new(&self.path);
+        self.checkpoints.iter().map(|e| dir.join(&e.name)).collect()
+    }
+
+    /// One sentence: what was found and in which order.
+    pub fn sentence(&self) -> String {
+        let listed: Vec<String> = self.checkpoints.iter().map(|e| e.name.clone()).collect();
+        let mut s = format!(
+            "run folder {}: {} checkpoints found, ordered by step number: {}",
+            self.path,
+            self.checkpoints.len(),
+            listed.join(", ")
+        );
+        if !self.skipped.is_empty() {
+            let names: Vec<&str> = self.skipped.iter().map(|e| e.name.as_str()).collect();
+            s.push_str(&format!(
+                "; left out (no step number in the name): {}",
+                names.join(", ")
+            ));
+        }
+        s
+    }
 }
 
 /// How a table was found in a checkpoint.
@@ -82,6 +139,8 @@ pub struct StepEntry {
     pub from: usize,
     /// Index of the later checkpoint.
     pub to: usize,
+    /// The two checkpoints' labels, `earlier → later` (e.g. `step-1000 → step-2000`).
+    pub label: String,
     /// L2 norm of the change of each compared row, ‖b_i − a_i‖ (table units); empty when
     /// the widths differ (no per-row comparison is possible).
     pub change: Vec<f64>,
@@ -175,8 +234,11 @@ pub struct TableComparison {
 pub struct CompareReport {
     /// Always [`COMPARE_SCHEMA`].
     pub schema: &'static str,
-    /// The checkpoints, in command-line order.
+    /// The checkpoints, in command-line order (or the run folder's step order).
     pub checkpoints: Vec<CheckpointEntry>,
+    /// What a single run folder given as PATH held; null when the checkpoints were
+    /// given one by one.
+    pub run: Option<RunFolder>,
     /// One entry per table found in any checkpoint.
     pub tables: Vec<TableComparison>,
     /// Non-fatal problems met while opening or comparing.
@@ -184,6 +246,18 @@ pub struct CompareReport {
 }
 
 impl CompareReport {
+    /// The label of checkpoint `index` (its index as text if out of range).
+    pub fn label(&self, index: usize) -> String {
+        self.checkpoints
+            .get(index)
+            .map_or_else(|| index.to_string(), |c| c.label.clone())
+    }
+
+    /// True when every checkpoint has a training step number.
+    pub fn steps_known(&self) -> bool {
+        !self.checkpoints.is_empty() && self.checkpoints.iter().all(|c| c.step.is_some())
+    }
+
     /// True when a finding of any table is at or above `level` (`--fail-on`).
     pub fn reaches(&self, level: crate::model::Severity) -> bool {
         self.tables

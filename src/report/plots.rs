@@ -320,6 +320,10 @@ pub struct Heatmap {
     pub width: u32,
     /// Image height in pixels. A square matrix is drawn with square cells.
     pub height: u32,
+    /// One tick label per matrix row (at the row's centre) instead of numeric y ticks,
+    /// thinned to fit; ignored unless it has exactly one label per row and the matrix
+    /// is not block-averaged.
+    pub row_labels: Vec<String>,
 }
 
 /// One panel of a [`HeatmapGrid`].
@@ -429,6 +433,7 @@ mod robustness {
                 color: color.clone(),
                 width: 800,
                 height: 400,
+                row_labels: Vec::new(),
             };
             well_formed(&heatmap(&h));
             let g = HeatmapGrid {

@@ -162,12 +162,19 @@ pub fn audit(report: &AuditReport) -> String {
 /// The terminal summary: the checkpoints, then one line per table and step.
 pub fn compare(report: &CompareReport) -> String {
     let mut out = String::new();
+    if let Some(run) = &report.run {
+        let _ = writeln!(out, "{}", run.sentence());
+    }
     for c in &report.checkpoints {
+        let step = c.step.map(|s| format!(", step {s}")).unwrap_or_default();
         let _ = writeln!(
             out,
-            "[{}] {} ({}, {} tensors)",
-            c.index, c.summary.path, c.summary.format, c.summary.tensors
+            "[{}] {}: {} ({}, {} tensors{step})",
+            c.index, c.label, c.summary.path, c.summary.format, c.summary.tensors
         );
+        if let Some(line) = c.summary.stand_ins_line() {
+            let _ = writeln!(out, "    {line}");
+        }
     }
     for w in &report.warnings {
         let _ = writeln!(out, "warning: {w}");

@@ -10,26 +10,36 @@ pub const MAX_RANGE_FINDINGS: usize = 4;
 
 const UNCHANGED_LIMITS: &str = "Identical up to a scale means never updated, only decayed: no gradient reached these rows between the two checkpoints, and decoupled weight decay alone shrank them by the common factor (exactly 1 means untouched or frozen). It says nothing about whether they were trained before the earlier checkpoint. The bound allows 512 float32 rounding steps per entry, what roughly 40 000 decay steps accumulate as random-walk rounding; decay-only rows of checkpoints much further apart, or of a run that applies the decay in bf16/f16, can exceed it and be reported as changed.";
 
-fn list(v: &[usize]) -> String {
+/// The labels of the checkpoints `v` (their indices where no label is given).
+fn list(v: &[usize], labels: &[String]) -> String {
     v.iter()
-        .map(usize::to_string)
+        .map(|&i| labels.get(i).cloned().unwrap_or_else(|| i.to_string()))
         .collect::<Vec<_>>()
         .join(", ")
 }
 
-/// `table-missing`: the table is absent from the checkpoints `missing`, held by `held`.
-pub fn table_missing(name: &str, missing: &[usize], held: &[usize]) -> CompareFinding {
+/// `table-missing`: the table is absent from the checkpoints `missing`, held by `held`
+/// (indices into `labels`, the checkpoints' labels).
+pub fn table_missing(
+    name: &str,
+    missing: &[usize],
+    held: &[usize],
+    labels: &[String],
+) -> CompareFinding {
     let message = format!(
         "`{name}` is missing from checkpoint{} {}; {}",
         if missing.len() == 1 { "" } else { "s" },
-        list(missing),
+        list(missing, labels),
         if held.len() == 1 {
             format!(
                 "it exists only in checkpoint {}, so nothing was compared.",
-                list(held)
+                list(held, labels)
             )
         } else {
-            format!("it was compared across checkpoints {} only.", list(held))
+            format!(
+                "it was compared across checkpoints {} only.",
+                list(held, labels)
+            )
         }
     );
     CompareFinding {
@@ -61,9 +71,10 @@ pub fn shape_changed(
     }
 }
 
-/// `non-finite`: the table of checkpoint `idx` holds `count` NaN or infinite values.
+/// `non-finite`: the table of checkpoint `idx` (labelled `label`) holds `count` NaN or
+/// infinite values; `where_` names the two checkpoints of the step ("a and b").
 pub fn non_finite(
-    idx: usize,
+    (idx, label): (usize, &str),
     count: usize,
     where_: &str,
     reason: &str,
@@ -73,7 +84,7 @@ pub fn non_finite(
         finding: Finding::error(
             FindingCode::NonFinite,
             format!(
-                "The table in checkpoint {idx} holds {count} NaN or infinite values; {where_} was not compared."
+                "The table in checkpoint {label} (#{idx}) holds {count} NaN or infinite values; the step between {where_} was not compared."
             ),
         )
         .evidence(reason)

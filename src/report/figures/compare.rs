@@ -92,11 +92,9 @@ fn change_chart(t: &TableComparison) -> String {
             .collect()
     };
     for s in &shown {
-        chart.series.push(Series::from_values(
-            format!("{} → {}", s.from, s.to),
-            0.0,
-            &s.change,
-        ));
+        chart
+            .series
+            .push(Series::from_values(s.label.clone(), 0.0, &s.change));
     }
     if shown.len() == 1 {
         for r in &shown[0].unchanged_detail {
@@ -120,8 +118,27 @@ fn change_chart(t: &TableComparison) -> String {
     line_chart(&chart)
 }
 
-fn timeline_heatmap(t: &TableComparison) -> Option<String> {
+fn timeline_heatmap(report: &CompareReport, t: &TableComparison) -> Option<String> {
     let tl = t.timeline.as_ref()?;
+    // Rows are the recorded steps: labelled by the later checkpoint's training step when
+    // every checkpoint has one (the change from the previous checkpoint up to that step),
+    // else by the two checkpoints' labels.
+    let by_step = report.steps_known();
+    let row_labels: Vec<String> = tl
+        .steps
+        .iter()
+        .map(
+            |s| match report.checkpoints.get(s.to).and_then(|c| c.step) {
+                Some(step) if by_step => step.to_string(),
+                _ => format!("{} → {}", report.label(s.from), report.label(s.to)),
+            },
+        )
+        .collect();
+    let y_label = if by_step {
+        "step reached"
+    } else {
+        "compared step"
+    };
     let rows = tl.heatmap.mean.len();
     let cols = tl.heatmap.bins.len();
     let values: Vec<f64> = tl.heatmap.mean.iter().flatten().copied().collect();
@@ -129,7 +146,7 @@ fn timeline_heatmap(t: &TableComparison) -> Option<String> {
     Some(heatmap(&Heatmap {
         title: format!("Mean change per step and position — {}", t.name),
         x_label: "position (row index)".into(),
-        y_label: "step (row k: checkpoint pair k)".into(),
+        y_label: y_label.into(),
         matrix,
         x_range: (0.0, tl.positions as f64),
         y_range: (-0.5, rows as f64 - 0.5),
@@ -140,6 +157,7 @@ fn timeline_heatmap(t: &TableComparison) -> Option<String> {
         },
         width: 800,
         height: (120 + 24 * rows as u32).clamp(260, 600),
+        row_labels,
     }))
 }
 
@@ -151,7 +169,7 @@ pub fn render_plots(report: &CompareReport) -> Vec<(String, String)> {
             let t = &report.tables[p.table];
             let svg = match p.what {
                 PlotKind::Change => Some(change_chart(t)),
-                PlotKind::Heatmap => timeline_heatmap(t),
+                PlotKind::Heatmap => timeline_heatmap(report, t),
             }?;
             Some((p.file, svg))
         })

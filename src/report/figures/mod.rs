@@ -173,6 +173,7 @@ fn one_d(t: &TableAudit, prefix: &str, out: &mut Vec<Figure>) {
                     },
                     width: 640,
                     height: 560,
+                    row_labels: Vec::new(),
                 };
                 out.push(fig(
                     prefix,

@@ -6,13 +6,13 @@ use std::fmt::Write;
 use super::finding;
 use crate::model::compare::{CompareReport, MatchedBy, StepEntry};
 use crate::report::figures::compare::{PlotKind, planned_plots};
-use crate::text::{escape as md_escape, range, ranges, sci as fmt_sci, shape_str};
+use crate::text::{escape as md_escape, grouped_ranges, range, sci as fmt_sci, shape_str};
 
 /// Ranges listed in running text before "and N more".
 const LISTED: usize = 6;
 
 pub(crate) fn step_label(s: &StepEntry) -> String {
-    format!("{} → {}", s.from, s.to)
+    s.label.clone()
 }
 
 fn similarity_cell(s: &StepEntry) -> String {
@@ -51,18 +51,35 @@ fn step_row(s: &StepEntry, label: &str) -> String {
 pub fn render(report: &CompareReport) -> String {
     let plots = planned_plots(report);
     let mut md = String::from("# Position tables compared\n\n");
-    md.push_str("| # | path | format | tensors |\n|---|---|---|---|\n");
+    if let Some(run) = &report.run {
+        let _ = writeln!(md, "{}.\n", md_escape(&run.sentence()));
+    }
+    md.push_str("| # | checkpoint | step | path | format | tensors |\n|---|---|---|---|---|---|\n");
     for c in &report.checkpoints {
         let _ = writeln!(
             md,
-            "| {} | `{}` | {} | {} |",
+            "| {} | {} | {} | `{}` | {} | {} |",
             c.index,
+            md_escape(&c.label),
+            c.step.map_or_else(|| "–".into(), |s| s.to_string()),
             md_escape(&c.summary.path),
             c.summary.format,
             c.summary.tensors
         );
     }
     md.push('\n');
+    for c in &report.checkpoints {
+        if let Some(line) = c.summary.stand_ins_line() {
+            let _ = writeln!(md, "- {}: {}", md_escape(&c.label), md_escape(&line));
+        }
+    }
+    if report
+        .checkpoints
+        .iter()
+        .any(|c| !c.summary.stand_ins.is_empty())
+    {
+        md.push('\n');
+    }
     for w in &report.warnings {
         let _ = writeln!(md, "- warning: {}", md_escape(w));
     }
@@ -76,8 +93,8 @@ pub fn render(report: &CompareReport) -> String {
             if m.matched_by == MatchedBy::KindAndShape || m.name != t.name {
                 let _ = writeln!(
                     md,
-                    "In checkpoint {} it is `{}` (matched by {}).",
-                    m.checkpoint,
+                    "In {} it is `{}` (matched by {}).",
+                    md_escape(&report.label(m.checkpoint)),
                     md_escape(&m.name),
                     m.matched_by.as_str()
                 );
@@ -108,7 +125,7 @@ pub fn render(report: &CompareReport) -> String {
             }
             md.push('\n');
             for s in t.steps.iter().chain(t.first_to_last.iter()) {
-                let _ = write!(md, "**Step {}**: ", step_label(s));
+                let _ = write!(md, "**{}**: ", step_label(s));
                 if let Some(n) = &s.note {
                     let _ = write!(md, "{} ", md_escape(n));
                 }
@@ -127,7 +144,7 @@ pub fn render(report: &CompareReport) -> String {
                         } else {
                             moved.join(", ")
                         },
-                        ranges(&s.unchanged, LISTED)
+                        grouped_ranges(&s.unchanged, LISTED)
                     );
                     if let (Some(tol), Some(dt)) = (s.unchanged_tolerance, &s.tolerance_dtype) {
                         let _ = write!(
@@ -148,14 +165,14 @@ pub fn render(report: &CompareReport) -> String {
         }
         if let Some(tl) = &t.timeline {
             md.push_str("### Timeline\n\n");
-            md.push_str("| positions | first moved at checkpoint |\n|---|---|\n");
+            md.push_str("| positions | first moved by |\n|---|---|\n");
             for r in tl.first_moved_ranges.iter().take(20) {
                 let _ = writeln!(
                     md,
                     "| {} | {} |",
                     range([r.start, r.end]),
                     r.first_moved
-                        .map(|v| v.to_string())
+                        .map(|v| md_escape(&report.label(v)))
                         .unwrap_or_else(|| "never".into())
                 );
             }
@@ -171,15 +188,15 @@ pub fn render(report: &CompareReport) -> String {
                 "\nConverged (quiet for the last {} step{}): {}. Still moving in the last step: {}. Never moved: {}.\n",
                 tl.quiet_window,
                 if tl.quiet_window == 1 { "" } else { "s" },
-                ranges(&tl.converged, LISTED),
-                ranges(&tl.still_moving, LISTED),
-                ranges(&tl.never_moved, LISTED)
+                grouped_ranges(&tl.converged, LISTED),
+                grouped_ranges(&tl.still_moving, LISTED),
+                grouped_ranges(&tl.never_moved, LISTED)
             );
             if !tl.unchanged_throughout.is_empty() {
                 let _ = writeln!(
                     md,
                     "Unchanged in every step (bit-identical or only shrunk by weight decay, so no gradient reached them between the first and the last checkpoint): {}.\n",
-                    ranges(&tl.unchanged_throughout, LISTED)
+                    grouped_ranges(&tl.unchanged_throughout, LISTED)
                 );
             }
         }
@@ -217,6 +234,7 @@ mod tests {
         StepEntry {
             from,
             to,
+            label: format!("step{from} → step{to}"),
             change: if per_row { vec![0.0, 1.0, 2.0] } else { vec![] },
             unchanged: if per_row { vec![[0, 1]] } else { vec![] },
             subspace_similarity: Some(0.5),
@@ -266,6 +284,8 @@ mod tests {
             checkpoints: (0..2)
                 .map(|index| CheckpointEntry {
                     index,
+                    label: format!("step{index}"),
+                    step: Some(index as u64),
                     summary: CheckpointSummary {
                         path: format!("run/step{index}.safetensors"),
                         format: Format::Safetensors,
@@ -277,6 +297,7 @@ mod tests {
                     },
                 })
                 .collect(),
+            run: None,
             tables: vec![table("a/b.weight", true), table("wide", false)],
             warnings: vec![],
         };
@@ -292,7 +313,10 @@ mod tests {
         assert_eq!(links, names);
         assert!(md.contains("widths differ (2 vs 4 columns)"));
         let text = crate::report::terminal::compare(&report);
-        assert_eq!(text.lines().filter(|l| l.contains("0 → 1")).count(), 2);
+        assert_eq!(
+            text.lines().filter(|l| l.contains("step0 → step1")).count(),
+            2
+        );
         let json = serde_json::to_value(&report).unwrap();
         assert_eq!(json["checkpoints"][1]["path"], "run/step1.safetensors");
         assert_eq!(json["tables"][0]["matched_by"], "name");

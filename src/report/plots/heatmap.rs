@@ -231,6 +231,22 @@ fn nan_swatch(svg: &mut Svg, x: f64, y: f64) {
     );
 }
 
+/// Ticks at the centres of the rows, labelled by `labels`, every k-th row so that
+/// labels are at least 14 px apart over `span` pixels (the last row always labelled).
+fn row_ticks(labels: &[String], y_range: (f64, f64), span: f64) -> Vec<(f64, String)> {
+    let n = labels.len();
+    if n == 0 {
+        return Vec::new();
+    }
+    let per_row = span / n as f64;
+    let every = ((14.0 / per_row.max(1e-9)).ceil() as usize).max(1);
+    let at = |i: usize| y_range.0 + (i as f64 + 0.5) * (y_range.1 - y_range.0) / n as f64;
+    (0..n)
+        .filter(|i| (n - 1 - i).is_multiple_of(every))
+        .map(|i| (at(i), labels[i].clone()))
+        .collect()
+}
+
 /// Draws a heatmap with a colour bar.
 ///
 /// Row 0 is at the top; column 0 at the left. Cell (r, c) covers
@@ -255,8 +271,13 @@ pub fn heatmap(h: &Heatmap) -> String {
 
     let top = 42.0;
     let bottom = height - 52.0;
+    let labelled = h.row_labels.len() == m.rows() && rows == m.rows();
     let y_probe = Axis::new(AxisKind::Linear, h.y_range.0, h.y_range.1, top, bottom);
-    let y_ticks = y_probe.ticks(((bottom - top) / 50.0).max(2.0) as usize);
+    let y_ticks = if labelled {
+        row_ticks(&h.row_labels, h.y_range, bottom - top)
+    } else {
+        y_probe.ticks(((bottom - top) / 50.0).max(2.0) as usize)
+    };
     let left = 34.0 + max_label_width(&y_ticks, TICK_SIZE) + 10.0;
     let bar_w = bar_space(range);
     let avail_w = width - left - bar_w - 10.0;
@@ -290,7 +311,11 @@ pub fn heatmap(h: &Heatmap) -> String {
         area.bottom,
     );
     let x_ticks = thin_x_ticks(x.ticks((aw / 80.0).max(2.0) as usize), &x);
-    let y_ticks = y.ticks((ah / 50.0).max(2.0) as usize);
+    let y_ticks = if labelled {
+        row_ticks(&h.row_labels, h.y_range, ah)
+    } else {
+        y.ticks((ah / 50.0).max(2.0) as usize)
+    };
 
     let mut svg = Svg::new(width, height);
     layout::title(&mut svg, width, &h.title);

@@ -83,6 +83,7 @@ fn cosine_map() -> Heatmap {
         },
         width: 800,
         height: 560,
+        row_labels: Vec::new(),
     }
 }
 
