@@ -70,7 +70,9 @@ macro_rules! compare_examples {
   posaudit compare run/step-1000 run/step-8000 --fail-on warning
       CI gate: exit 1 when a table went missing, changed shape or holds NaN
   posaudit compare run/step-1000 run/step-8000 --threads 1
-      on one core; the output is the same for every thread count"
+      on one core; the output is the same for every thread count
+  posaudit compare run/ --file model_ema.safetensors
+      the EMA weights of every checkpoint, where each folder holds several"
     };
 }
 
@@ -780,8 +782,14 @@ mod tests {
     }
 
     #[test]
-    fn compare_needs_two_paths() {
-        assert!(Cli::try_parse_from(["posaudit", "compare", "a.safetensors"]).is_err());
+    fn compare_takes_a_run_folder_or_several_paths() {
+        assert!(Cli::try_parse_from(["posaudit", "compare"]).is_err());
+        // One path parses: a run folder (whether it is one is decided when it is read).
+        let cli = Cli::try_parse_from(["posaudit", "compare", "run"]).unwrap();
+        let Command::Compare(args) = cli.command else {
+            panic!("compare expected");
+        };
+        assert_eq!(args.paths.len(), 1);
         let cli = Cli::try_parse_from(["posaudit", "compare", "a", "b", "c", "--json"]).unwrap();
         let Command::Compare(args) = cli.command else {
             panic!("compare expected");

@@ -622,3 +622,23 @@ fn fail_on_gates_compare_by_the_documented_levels() {
     let want_error = if has("error") { 1 } else { 0 };
     assert_eq!(run(&["--fail-on", "error"]).status.code(), Some(want_error));
 }
+
+#[test]
+fn one_path_that_is_not_a_run_folder_is_a_usage_error_naming_it() {
+    // One checkpoint file, and one checkpoint folder of the demo (it holds weights, no
+    // step-numbered checkpoints): neither is a run, so there is nothing to compare.
+    for path in [
+        "examples/demo/checkpoints/run-a/step-8000/model.safetensors",
+        "examples/demo/checkpoints/run-a/step-8000",
+    ] {
+        let run = posaudit(&["compare", path]);
+        assert_eq!(run.code, 2, "{path}: {}", run.stderr);
+        let lines: Vec<&str> = run.stderr.lines().collect();
+        assert_eq!(lines.len(), 1, "{}", run.stderr);
+        assert!(
+            lines[0].contains(path) && lines[0].contains("run folder"),
+            "{}",
+            run.stderr
+        );
+    }
+}

@@ -21,7 +21,7 @@ use std::rc::Rc;
 
 use ndarray::{Array2, s};
 
-use super::run::{find_run, labels as run_labels, step_number};
+use super::run::{find_run, labels as run_labels, steps_of};
 use crate::analyze::stats::median;
 use crate::checkpoint::{Checkpoint, Dtype, TensorInfo};
 use crate::compare::{
@@ -149,6 +149,18 @@ pub fn run_with_progress(
         Some(run) => run.checkpoints.iter().map(|e| e.name.clone()).collect(),
         None => run_labels(paths),
     };
+    // Training steps from the names: the run folder's, or those of the last path
+    // components given, read together (see `run::steps_of`).
+    let steps: Vec<Option<u64>> = match &run_folder {
+        Some(run) => run.checkpoints.iter().map(|e| e.step).collect(),
+        None => {
+            let names: Vec<&str> = labels
+                .iter()
+                .map(|l| l.rsplit('/').next().unwrap_or_default())
+                .collect();
+            steps_of(&names)
+        }
+    };
     // Open every checkpoint once first (headers only), so a bad path fails before any
     // table is read; each is closed again right away.
     let mut checkpoints = Vec::with_capacity(paths.len());
@@ -158,14 +170,10 @@ pub fn run_with_progress(
         for (f, seen) in forced.iter().zip(seen_forced.iter_mut()) {
             *seen |= ckpt.tensor(f).is_some();
         }
-        let name = labels[index].rsplit('/').next().unwrap_or_default();
         checkpoints.push(CheckpointEntry {
             index,
             label: labels[index].clone(),
-            step: run_folder
-                .as_ref()
-                .and_then(|r| r.checkpoints[index].step)
-                .or_else(|| step_number(name)),
+            step: steps[index],
             summary: CheckpointSummary::of(&ckpt),
         });
     }

@@ -18,33 +18,57 @@ fn is_checkpoint_file(name: &str) -> bool {
     lower.ends_with(".ckpt") || WEIGHT_ENDINGS.iter().any(|end| lower.ends_with(end))
 }
 
-/// The training step a checkpoint's name gives, if any.
-///
-/// In order: digits after the word `step` (`step-2000`, `global_step800`,
-/// `epoch=3-step=1200`, `step_00120`); then digits after `checkpoint`, `ckpt` or `iter`
-/// (`checkpoint-500`, `iter_0004000`); then, for a name holding a single number, that
-/// number (`000123.safetensors`, `model_1000.pt`). A name with several numbers and none
-/// of those words (`run2_epoch3`) has no step: which number counts is a guess.
-/// Separators between the word and the digits may be `-`, `_`, `=`, `.` or nothing.
-pub fn step_number(name: &str) -> Option<u64> {
-    let stem = name
-        .rsplit_once('.')
+/// The stem of a checkpoint name: without a checkpoint file's extension (or `.index`).
+fn stem(name: &str) -> &str {
+    name.rsplit_once('.')
         .filter(|(_, ext)| is_checkpoint_file(&format!(".{ext}")) || *ext == "index")
-        .map_or(name, |(stem, _)| stem);
-    let lower = stem.to_ascii_lowercase();
-    for word in ["step", "checkpoint", "ckpt", "iter"] {
-        if let Some(n) = number_after(&lower, word) {
-            return Some(n);
-        }
+        .map_or(name, |(stem, _)| stem)
+}
+
+/// The training step a checkpoint's name states with a step word: digits after `step`
+/// (`step-2000`, `global_step800`, `epoch=3-step=1200`, `step_00120`), else after
+/// `checkpoint`, `ckpt` or `iter` (`checkpoint-500`, `iter_0004000`). Separators between
+/// the word and the digits may be `-`, `_`, `=`, `.`, a space or nothing.
+pub fn step_number(name: &str) -> Option<u64> {
+    let lower = stem(name).to_ascii_lowercase();
+    ["step", "checkpoint", "ckpt", "iter"]
+        .iter()
+        .find_map(|word| number_after(&lower, word))
+}
+
+/// A trailing counter without a step word: the stem is digits (`000123`), or a word
+/// without digits, a separator and digits (`model_1000`, `weights-20`). Names such as
+/// `t5-like`, `bf16-angles` or `run2_epoch3` have none.
+fn trailing_counter(name: &str) -> Option<(String, u64)> {
+    let lower = stem(name).to_ascii_lowercase();
+    let digits_at = lower.trim_end_matches(|c: char| c.is_ascii_digit()).len();
+    let (head, digits) = lower.split_at(digits_at);
+    if digits.is_empty() || head.chars().any(|c| c.is_ascii_digit()) {
+        return None;
     }
-    let groups: Vec<&str> = lower
-        .split(|c: char| !c.is_ascii_digit())
-        .filter(|g| !g.is_empty())
-        .collect();
-    match groups[..] {
-        [only] => only.parse().ok(),
-        _ => None,
+    if !(head.is_empty() || head.ends_with(['-', '_', '=', '.', ' '])) {
+        return None;
     }
+    Some((head.to_string(), digits.parse().ok()?))
+}
+
+/// The training steps of the checkpoints named `names`, taken together: a step word
+/// ([`step_number`]) counts alone; a bare trailing counter (`model_1000`, `000123`)
+/// counts only when another name has the same text around its counter, so that a
+/// number in a model's own name (`text-base-4096`, `t5-like`) is never read as a step.
+pub fn steps_of(names: &[&str]) -> Vec<Option<u64>> {
+    let counters: Vec<Option<(String, u64)>> = names.iter().map(|n| trailing_counter(n)).collect();
+    names
+        .iter()
+        .zip(&counters)
+        .map(|(name, counter)| {
+            step_number(name).or_else(|| {
+                let (head, n) = counter.as_ref()?;
+                let shared = counters.iter().flatten().filter(|(h, _)| h == head).count() > 1;
+                shared.then_some(*n)
+            })
+        })
+        .collect()
 }
 
 /// Digits following the last occurrence of `word` in `s` (after optional separators).
@@ -89,10 +113,15 @@ pub fn find_run(dir: &Path) -> Option<RunFolder> {
             continue;
         };
         found.push(RunEntry {
-            step: step_number(&name),
+            step: None,
             name,
             folder,
         });
+    }
+    let names: Vec<&str> = found.iter().map(|e| e.name.as_str()).collect();
+    let steps = steps_of(&names);
+    for (e, step) in found.iter_mut().zip(steps) {
+        e.step = step;
     }
     let (mut checkpoints, mut skipped): (Vec<_>, Vec<_>) =
         found.into_iter().partition(|e| e.step.is_some());
@@ -177,11 +206,32 @@ mod tests {
         assert_eq!(step_number("global_step800"), Some(800));
         assert_eq!(step_number("epoch=3-step=1200.ckpt"), Some(1200));
         assert_eq!(step_number("iter_0004000"), Some(4000));
-        assert_eq!(step_number("000123.safetensors"), Some(123));
-        assert_eq!(step_number("model_1000.pt"), Some(1000));
         assert_eq!(step_number("model.safetensors"), None);
         assert_eq!(step_number("run2_epoch3"), None);
         assert_eq!(step_number("step"), None);
+        // Bare counters count only when the names share the text around them.
+        assert_eq!(
+            steps_of(&["model_1000.pt", "model_500.pt", "000123.safetensors"]),
+            vec![Some(1000), Some(500), None]
+        );
+        assert_eq!(
+            steps_of(&["000123.safetensors", "000456.safetensors"]),
+            vec![Some(123), Some(456)]
+        );
+        // Numbers that belong to a model's name are not steps.
+        assert_eq!(
+            steps_of(&[
+                "t5-like",
+                "encoder-fixed-bf16-angles",
+                "text-base-4096",
+                "text-base"
+            ]),
+            vec![None, None, None, None]
+        );
+        assert_eq!(
+            steps_of(&["step-0800", "training-step-0800.pt"]),
+            vec![Some(800), Some(800)]
+        );
     }
 
     #[test]

@@ -52,7 +52,7 @@ pub struct CheckpointEntry {
 pub struct RunEntry {
     /// The entry's name inside the run folder.
     pub name: String,
-    /// The step number its name gives (see `commands::run::step_number`).
+    /// The step number its name gives (see `commands::run::steps_of`).
     pub step: Option<u64>,
     /// True for a sub-folder (holding weight files), false for a checkpoint file.
     pub folder: bool,
