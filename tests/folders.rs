@@ -219,3 +219,73 @@ fn a_run_folder_shows_the_compare_command() {
         shown.stdout
     );
 }
+
+#[test]
+fn compare_reads_the_file_named_with_file_in_every_folder_and_lists_stand_ins() {
+    // Weights from the committed training run (fixtures/training, written by torch's
+    // safetensors writer): in both folders model.safetensors is step 0 (so the default
+    // comparison sees no change at all), model_ema.safetensors is step 200 and step 600
+    // (wpe rows 128..512 untouched but for weight decay, rows 0..128 trained).
+    let dir = tempfile::tempdir().unwrap();
+    let step = |s: &str| fixture(&format!("training/decoder/{s}/model.safetensors"));
+    for (sub, ema) in [("step-1", "step-0200"), ("step-2", "step-0600")] {
+        let d = dir.path().join(sub);
+        std::fs::create_dir(&d).unwrap();
+        std::fs::copy(step("step-0000"), d.join("model.safetensors")).unwrap();
+        std::fs::copy(step(ema), d.join("model_ema.safetensors")).unwrap();
+    }
+    let run = dir.path().to_str().unwrap();
+    let json = |extra: &[&str]| -> serde_json::Value {
+        let mut args = vec![
+            "compare",
+            run,
+            "--json",
+            "--table",
+            "transformer.wpe.weight",
+        ];
+        args.extend_from_slice(extra);
+        let r = posaudit(&args);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        serde_json::from_str(&r.stdout).unwrap()
+    };
+    let plain = json(&[]);
+    let s = &plain["tables"][0]["steps"][0];
+    assert_eq!(s["label"], "step-1 → step-2");
+    assert_eq!(s["mean_change"], 0.0);
+    assert_eq!(s["unchanged_rows"], 512);
+    assert_eq!(
+        plain["checkpoints"][0]["folder"]["others"][0],
+        "model_ema.safetensors"
+    );
+
+    let ema = json(&["--file", "model_ema.safetensors"]);
+    for c in ema["checkpoints"].as_array().unwrap() {
+        assert_eq!(c["folder"]["files"][0], "model_ema.safetensors");
+        assert_eq!(c["folder"]["named"], true);
+    }
+    let s = &ema["tables"][0]["steps"][0];
+    assert!(s["mean_change"].as_f64().unwrap() > 1e-3, "{s}");
+    assert_eq!(s["unchanged"], serde_json::json!([[128, 512]]));
+
+    // A training checkpoint that pickles an argparse.Namespace (written by torch.save):
+    // compare lists what was stood in for, in the JSON and in the terminal summary.
+    let dec = fixture("training/decoder");
+    let (a, b) = (
+        dec.join("step-0800").display().to_string(),
+        dec.join("training-step-0800.pt").display().to_string(),
+    );
+    let r = posaudit(&["compare", &a, &b, "--json"]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let doc: serde_json::Value = serde_json::from_str(&r.stdout).unwrap();
+    assert_eq!(
+        doc["checkpoints"][1]["stand_ins"][0]["global"],
+        "argparse.Namespace"
+    );
+    let text = posaudit(&["compare", &a, &b]);
+    assert!(
+        text.stdout
+            .contains("pickled objects read as inert data (never run): argparse.Namespace ×1"),
+        "{}",
+        text.stdout
+    );
+}
