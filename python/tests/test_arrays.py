@@ -151,9 +151,10 @@ def test_the_published_sinusoid_is_recognised_from_content():
 def test_compare_arrays_equals_compare_of_the_saved_files(binary, tmp_path):
     name = "tern.embeddings.position_embeddings.weight"
     steps = [load_file(DEMO / "run-a" / f"step-{s}" / "model.safetensors")[name] for s in (1000, 2000, 4000)]
+    # The files are named like the labels: steps and messages call checkpoints by name.
     files = []
-    for i, table in enumerate(steps):
-        f = tmp_path / f"s{i}.safetensors"
+    for s, table in zip((1000, 2000, 4000), steps):
+        f = tmp_path / f"{s}.safetensors"
         save_file({name: table}, f)
         files.append(f)
     ref = cli_json(binary, "compare", *files, "--table", name)
