@@ -173,4 +173,11 @@ fn a_llama_gguf_without_a_rope_base_states_the_assumed_default() {
         stdout.contains("llama.rope.freq_base absent: assumed default"),
         "{stdout}"
     );
+    // The terminal verdict says so too, not only the JSON's hint list.
+    let (_, text, _) = run(&["audit", path.to_str().unwrap()]);
+    assert!(
+        text.contains("base 10000, scaling none")
+            && text.contains("base assumed, not stated (llama.rope.freq_base absent"),
+        "{text}"
+    );
 }

@@ -440,7 +440,14 @@ pub fn rotary(audit: &mut TableAudit, values: ArrayView1<f64>, config: Option<&C
 /// a rotary base (and no frequency tensor is stored: the caller checks).
 pub fn config_rotary(config: Option<&ConfigHints>) -> Option<ConfigRotary> {
     let analysis = rotary_from_config(config)?;
-    let (verdict, mut findings) = rotary_findings(&analysis);
+    let (mut verdict, mut findings) = rotary_findings(&analysis);
+    // A base the file does not state (a format's documented default) is said to be assumed
+    // in the verdict itself, not only in the config's hint list.
+    if let Some(h) = config.and_then(|c| c.rope_theta.as_ref())
+        && h.key.contains("assumed")
+    {
+        verdict = format!("{verdict}; base assumed, not stated ({})", h.key);
+    }
     findings.sort_by_key(|f| std::cmp::Reverse(f.severity));
     Some(ConfigRotary {
         analysis,
